@@ -1,0 +1,365 @@
+"""The setup of one bench: source, aperture, screen and numerics as typed parameters.
+
+Every quantity is SI (metres, watts, W/m², radians). Each parameter carries its
+unit in ``metadata["unit"]`` so that the user interface can convert at the edge
+and show it; bounds and docs live here and nowhere else.
+
+The classes mirror the snapshot format (see ``compute.snapshot``): one class per
+section, one subclass of :class:`Element` per aperture shape.
+"""
+
+from __future__ import annotations
+
+import math
+
+import param
+
+__all__ = [
+    "ELEMENT_TYPES",
+    "Annulus",
+    "Aperture",
+    "Circle",
+    "Edge",
+    "Element",
+    "Grating",
+    "Image",
+    "Numerics",
+    "Polygon",
+    "Rect",
+    "Screen",
+    "Setup",
+    "Source",
+    "unit_of",
+]
+
+# Hard limits shared by the model and the snapshot reader.
+MAX_LENGTH = 10.0  # m; no aperture element on a bench is larger
+MAX_OFFSET = 10.0  # m
+MAX_IMAGE_PIXELS = 2048 * 2048
+MAX_POLYGON_VERTICES = 1000
+MAX_GRATING_COUNT = 100_000
+
+
+def _length(default, doc, *, lower=0.0, upper=MAX_LENGTH, open_lower=True, **kw):
+    return param.Number(
+        default,
+        bounds=(lower, upper),
+        inclusive_bounds=(not open_lower, True),
+        doc=doc,
+        metadata={"unit": "m"},
+        **kw,
+    )
+
+
+def _offset(default, doc, **kw):
+    return param.Number(
+        default, bounds=(-MAX_OFFSET, MAX_OFFSET), doc=doc, metadata={"unit": "m"}, **kw
+    )
+
+
+def _angle(default, doc, limit=2 * math.pi):
+    return param.Number(default, bounds=(-limit, limit), doc=doc, metadata={"unit": "rad"})
+
+
+def unit_of(obj: param.Parameterized, name: str) -> str:
+    """Return the SI unit of parameter ``name`` of ``obj`` ('' when dimensionless)."""
+    meta = obj.param[name].metadata or {}
+    return meta.get("unit", "")
+
+
+class Source(param.Parameterized):
+    """The illumination incident on the aperture plane."""
+
+    kind = param.Selector(
+        default="plane",
+        objects=["plane", "gaussian", "point"],
+        doc="Kind of source: a plane wave, a Gaussian beam, or a point source.",
+    )
+    wavelength = param.Number(
+        6.328e-7,
+        bounds=(1e-10, 1e-3),
+        doc="Vacuum wavelength, m.",
+        metadata={"unit": "m"},
+    )
+    irradiance = param.Number(
+        100.0,
+        bounds=(0.0, 1e15),
+        doc="Incident irradiance of the plane wave, W/m².",
+        metadata={"unit": "W/m²"},
+    )
+    power = param.Number(
+        1e-3,
+        bounds=(0.0, 1e9),
+        doc="Total power of the Gaussian beam or of the point source, W.",
+        metadata={"unit": "W"},
+    )
+    waist = _length(1e-3, "1/e² intensity radius of the Gaussian beam at its waist, m.", upper=1.0)
+    waist_offset = param.Number(
+        0.0,
+        bounds=(-1e4, 1e4),
+        doc="Distance from the waist to the aperture plane, m; positive when the waist "
+        "lies before the aperture.",
+        metadata={"unit": "m"},
+    )
+    distance = _length(
+        0.1, "Distance of the point source before the aperture plane, m.", upper=1e4
+    )
+    tilt_x = _angle(0.0, "Angle of incidence about the y axis, rad.", limit=1.0)
+    tilt_y = _angle(0.0, "Angle of incidence about the x axis, rad.", limit=1.0)
+
+
+class Element(param.Parameterized):
+    """One painted element of the aperture; subclasses add the shape."""
+
+    shape: str = ""
+
+    x = _offset(0.0, "Centre of the element, x, m.")
+    y = _offset(0.0, "Centre of the element, y, m.")
+    angle = _angle(0.0, "Rotation about the centre, counter-clockwise from +x, rad.")
+    transmission = param.Number(
+        1.0,
+        bounds=(0.0, 1.0),
+        doc="Amplitude transmission inside the element, 0 to 1.",
+        metadata={"unit": ""},
+    )
+    phase = param.Number(
+        0.0,
+        bounds=(-1e3, 1e3),
+        doc="Phase added inside the element, rad.",
+        metadata={"unit": "rad"},
+    )
+
+    def shape_keys(self) -> list[str]:
+        """Names of the parameters that this shape adds to the common ones."""
+        common = set(Element.param)
+        return [n for n in self.param if n not in common]
+
+    def check(self) -> list[tuple[str, str]]:
+        """Cross-parameter rules that bounds cannot express: ``[(key, message), ...]``."""
+        return []
+
+
+class Rect(Element):
+    """A rectangle, ``width`` along the element's x axis and ``height`` along its y axis."""
+
+    shape = "rect"
+    width = _length(5e-5, "Full width along the element's x axis, m.")
+    height = _length(2e-3, "Full height along the element's y axis, m.")
+
+
+class Circle(Element):
+    """A disk."""
+
+    shape = "circle"
+    diameter = _length(1e-3, "Diameter, m.")
+
+
+class Annulus(Element):
+    """A ring between two concentric circles."""
+
+    shape = "annulus"
+    diameter = _length(2e-3, "Outer diameter, m.")
+    inner_diameter = _length(1e-3, "Inner diameter, m.", open_lower=False)
+
+    def check(self):
+        if self.inner_diameter >= self.diameter:
+            return [
+                (
+                    "inner_diameter",
+                    f"inner_diameter {self.inner_diameter:g} m must be smaller than "
+                    f"diameter {self.diameter:g} m",
+                )
+            ]
+        return []
+
+
+class Grating(Element):
+    """``count`` rectangular openings side by side along the element's x axis."""
+
+    shape = "grating"
+    count = param.Integer(
+        10,
+        bounds=(1, MAX_GRATING_COUNT),
+        doc="Number of openings.",
+        metadata={"unit": ""},
+    )
+    period = _length(1e-4, "Centre-to-centre distance of the openings, m.")
+    width = _length(5e-5, "Width of each opening, m.")
+    height = _length(2e-3, "Height of the openings, m.")
+
+    def check(self):
+        if self.width > self.period:
+            return [
+                (
+                    "width",
+                    f"width {self.width:g} m must not exceed period {self.period:g} m",
+                )
+            ]
+        return []
+
+
+class Edge(Element):
+    """A half-plane covering x′ ≥ 0 in the element's own frame, through (x, y)."""
+
+    shape = "edge"
+
+
+class Polygon(Element):
+    """A simple polygon; ``vertices`` are relative to the element's centre."""
+
+    shape = "polygon"
+    vertices = param.List(
+        default=[[-5e-4, -5e-4], [5e-4, -5e-4], [0.0, 5e-4]],
+        doc="Vertices [[x, y], ...] relative to the centre, m; at least three.",
+        metadata={"unit": "m"},
+    )
+
+    def check(self):
+        v = self.vertices
+        if len(v) < 3:
+            return [("vertices", f"a polygon needs at least 3 vertices, got {len(v)}")]
+        if len(v) > MAX_POLYGON_VERTICES:
+            return [("vertices", f"at most {MAX_POLYGON_VERTICES} vertices, got {len(v)}")]
+        for i, p in enumerate(v):
+            ok = (
+                isinstance(p, (list, tuple))
+                and len(p) == 2
+                and all(
+                    isinstance(c, (int, float))
+                    and not isinstance(c, bool)
+                    and math.isfinite(c)
+                    and abs(c) <= MAX_LENGTH
+                    for c in p
+                )
+            )
+            if not ok:
+                return [(f"vertices[{i}]", f"expected [x, y] in metres, got {p!r}")]
+        area = 0.5 * sum(
+            v[i][0] * v[(i + 1) % len(v)][1] - v[(i + 1) % len(v)][0] * v[i][1]
+            for i in range(len(v))
+        )
+        if area == 0.0:
+            return [("vertices", "the polygon has zero area")]
+        return []
+
+
+class Image(Element):
+    """A grey-level mask: a PNG whose grey level is the amplitude transmission."""
+
+    shape = "image"
+    data = param.String(
+        default="",
+        doc="The mask as a PNG data URL (data:image/png;base64,...).",
+        metadata={"unit": ""},
+    )
+    width = _length(1e-3, "Width of the image on the aperture plane, m.")
+    height = _length(1e-3, "Height of the image on the aperture plane, m.")
+
+
+ELEMENT_TYPES: dict[str, type[Element]] = {
+    cls.shape: cls for cls in (Rect, Circle, Annulus, Grating, Edge, Polygon, Image)
+}
+
+
+class Aperture(param.Parameterized):
+    """The aperture plane: a background and elements painted over it in list order."""
+
+    background = param.Selector(
+        default="opaque",
+        objects=["opaque", "clear"],
+        doc="'opaque': light passes only inside elements; 'clear': everywhere except "
+        "where elements say otherwise.",
+    )
+    elements = param.List(
+        default=[], item_type=Element, doc="Elements painted in order over the background."
+    )
+
+
+class Screen(param.Parameterized):
+    """The observed window behind the aperture (or behind the lens, when one is set)."""
+
+    distance = _length(1.0, "Distance from the aperture (or lens) to the screen, m.", upper=1e6)
+    width = _length(0.02, "Width of the observed window, m.", upper=100.0)
+    height = _length(0.01, "Height of the observed window, m.", upper=100.0)
+    x = param.Number(0.0, bounds=(-100.0, 100.0), doc="Window centre, x, m.", metadata={"unit": "m"})
+    y = param.Number(0.0, bounds=(-100.0, 100.0), doc="Window centre, y, m.", metadata={"unit": "m"})
+    samples = param.Integer(
+        400,
+        bounds=(2, 4096),
+        doc="Pixels across the width; the height follows the aspect ratio.",
+        metadata={"unit": ""},
+    )
+    lens_focal_length = param.Number(
+        None,
+        allow_None=True,
+        bounds=(-1e3, 1e3),
+        doc="Focal length of a thin lens right behind the aperture, m; None for no lens.",
+        metadata={"unit": "m"},
+    )
+
+    def shape_px(self) -> tuple[int, int]:
+        """Screen pixels ``(ny, nx)``: ``samples`` across, the height by the aspect ratio."""
+        nx = int(self.samples)
+        ny = max(1, int(round(nx * self.height / self.width)))
+        return ny, nx
+
+    def check(self):
+        f = self.lens_focal_length
+        if f is not None and abs(f) < 1e-6:
+            return [("lens_focal_length", f"focal length {f:g} m is too short (|f| ≥ 1e-6 m)")]
+        ny, _ = self.shape_px()
+        if ny > 4096:
+            return [("height", f"height/width ratio gives {ny} pixel rows; at most 4096")]
+        return []
+
+
+class Numerics(param.Parameterized):
+    """How the field is computed."""
+
+    method = param.Selector(
+        default="auto",
+        objects=["auto", "fraunhofer", "fresnel", "angular_spectrum", "rayleigh_sommerfeld"],
+        doc="Propagation method; 'auto' chooses one for the setup and says why.",
+    )
+    grid = param.Integer(
+        0,
+        bounds=(0, 32768),
+        doc="Samples per side in the aperture plane; 0 plans the grid automatically.",
+        metadata={"unit": ""},
+    )
+    precision = param.Selector(
+        default="single",
+        objects=["single", "double"],
+        doc="Floating-point precision of the propagation.",
+    )
+
+    def check(self):
+        if 0 < self.grid < 16:
+            return [("grid", f"grid {self.grid} is too coarse; use 0 (automatic) or ≥ 16")]
+        return []
+
+
+class Setup(param.Parameterized):
+    """A whole bench: what a snapshot holds."""
+
+    source = param.ClassSelector(class_=Source, default=None, instantiate=True)
+    aperture = param.ClassSelector(class_=Aperture, default=None, instantiate=True)
+    screen = param.ClassSelector(class_=Screen, default=None, instantiate=True)
+    numerics = param.ClassSelector(class_=Numerics, default=None, instantiate=True)
+    meta = param.Dict(default={}, doc="Title, note, creation time, app version.")
+    view = param.Dict(default={}, doc="Display settings; they never change a computed number.")
+
+    def __init__(self, **params):
+        params.setdefault("source", Source())
+        params.setdefault("aperture", Aperture())
+        params.setdefault("screen", Screen())
+        params.setdefault("numerics", Numerics())
+        super().__init__(**params)
+
+    def check(self) -> list[tuple[str, str]]:
+        """Cross-parameter rules of the whole setup, as ``[(path, message), ...]``."""
+        problems = [(f"screen.{k}", m) for k, m in self.screen.check()]
+        problems += [(f"numerics.{k}", m) for k, m in self.numerics.check()]
+        for i, el in enumerate(self.aperture.elements):
+            problems += [(f"aperture.elements[{i}].{k}", m) for k, m in el.check()]
+        return problems
