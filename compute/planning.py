@@ -1,0 +1,849 @@
+"""Choosing the method, grid, pitch and padding for a setup; the validity report.
+
+The planner reads the geometry of a setup — the region of the aperture plane
+that carries light, the screen window, the distance, a lens — and decides how
+to compute the screen field so that the sampling holds the stated accuracy
+from the near field to the far field. It records why, estimates the memory
+before anything is allocated, and reports what each approximation drops.
+
+Quantities of the report (all SI):
+
+* Fresnel number N_F = a²/(λz), a the half-width of the lit region
+  (Goodman §4.5.1);
+* Fraunhofer distance 2D²/λ, D its full size (common practice; Born & Wolf
+  §8.3.3 give the condition on the neglected quadratic phase);
+* the largest quadratic phase π ρ²/(λz) across the aperture that the
+  Fraunhofer form drops (Goodman §4.3, eq. 4-24);
+* the largest quartic phase π ρ⁴/(4λz³) of the distance expansion that the
+  paraxial Fresnel form drops, ρ the largest lateral separation between an
+  aperture point and a screen point (Goodman §4.2, eq. 4-18);
+* the largest angle on the screen, and the sampling margins of the grid.
+
+References
+----------
+.. [G] J. W. Goodman, *Introduction to Fourier Optics*, 3rd ed. (2005), §4.2, §4.3, §4.5.
+.. [V] D. G. Voelz, *Computational Fourier Optics*, SPIE (2011), §5.1.
+.. [MS] K. Matsushima and T. Shimobaba, Opt. Express 17, 19662 (2009).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from . import apertures, sources
+from .errors import SetupError
+from .fft import next_fast_len
+from .model import Setup
+
+__all__ = [
+    "DEFAULT_MEMORY_LIMIT",
+    "Plan",
+    "ValidityItem",
+    "plan",
+    "screen_axes",
+]
+
+DEFAULT_MEMORY_LIMIT = 2 * 1024**3
+
+# Accuracy targets of `auto` (rad of neglected phase); the report's limits are looser.
+AUTO_FRAUNHOFER_PHASE = 0.1
+AUTO_PARAXIAL_PHASE = 0.1
+# Report limits: ok below the first, marginal below the second.
+FRAUNHOFER_PHASE_LIMITS = (math.pi / 8, math.pi / 2)
+PARAXIAL_PHASE_LIMITS = (math.pi / 8, math.pi)
+ANGLE_LIMITS = (math.radians(30.0), math.radians(60.0))
+
+OVERSAMPLE = 2.0  # samples per period of the highest needed spatial frequency, over Nyquist
+# The single-transform routes sample the chirp of the Fresnel integral itself; curved
+# edges off the pixel grid leave a midpoint-rule error that needs the finer pitch.
+OVERSAMPLE_TRANSFORM = 4.0
+SAMPLES_PER_FEATURE = 6.0
+MIN_SAMPLES_ACROSS = 64
+MAX_DIRECT_PAIRS = 2.0e9  # aperture samples × screen points for direct integration
+TAPER_FRESNEL_SCALES = 8.0
+KERNEL_REACH_FRESNEL_SCALES = 4.0  # convolution kernels reach this far beyond the window  # margin and taper of an unbounded aperture, in √(λz)
+
+METHODS = ("fraunhofer", "fresnel", "angular_spectrum", "rayleigh_sommerfeld")
+
+
+@dataclass
+class ValidityItem:
+    """One line of the validity report."""
+
+    key: str
+    label: str
+    value: float
+    limit: float
+    unit: str
+    verdict: str  # 'ok' | 'marginal' | 'invalid'
+    sentence: str
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        for k in ("value", "limit"):
+            v = d[k]
+            d[k] = None if v is None or not math.isfinite(v) else float(v)
+        return d
+
+
+@dataclass
+class Plan:
+    """How a setup is computed, and why.
+
+    ``nx, ny, dx, dy`` describe the aperture grid; ``padded`` the FFT size for
+    the convolution methods (the grid itself for the others).
+    """
+
+    method: str
+    variant: str
+    nx: int
+    ny: int
+    dx: float
+    dy: float
+    padded: tuple[int, int]
+    reasons: list[str]
+    memory_bytes: int
+    fresnel_number: float
+    validity: list[ValidityItem] = field(default_factory=list)
+    # Geometry the engine needs; not part of the report.
+    grid_centre: tuple[float, float] = (0.0, 0.0)
+    lit_box: tuple[float, float, float, float] | None = None
+    taper: tuple[float, float, float, float] | None = None  # taper widths (x0, x1, y0, y1)
+    babinet: bool = False
+    dtype: str = "complex64"
+    output: str = "grid"  # 'grid' (slice the FFT grid), 'points' (matrix transform)
+    step: tuple[int, int] = (1, 1)  # FFT-grid samples per screen pixel (x, y)
+
+    def to_dict(self) -> dict:
+        return {
+            "method": self.method,
+            "variant": self.variant,
+            "grid": [self.ny, self.nx],
+            "pitch": [self.dy, self.dx],
+            "padded": list(self.padded),
+            "reasons": list(self.reasons),
+            "memory_bytes": int(self.memory_bytes),
+            "fresnel_number": float(self.fresnel_number),
+            "validity": [v.to_dict() for v in self.validity],
+        }
+
+    @property
+    def worst(self) -> str:
+        order = {"ok": 0, "marginal": 1, "invalid": 2}
+        return max((v.verdict for v in self.validity), key=order.get, default="ok")
+
+
+def screen_axes(setup: Setup) -> tuple[np.ndarray, np.ndarray]:
+    """Screen pixel centres (x, y), m: the window split into equal pixels."""
+    s = setup.screen
+    ny, nx = s.shape_px()
+    dxs = s.width / nx
+    dys = s.height / ny
+    x = s.x - s.width / 2 + (np.arange(nx) + 0.5) * dxs
+    y = s.y - s.height / 2 + (np.arange(ny) + 0.5) * dys
+    return x, y
+
+
+# --------------------------------------------------------------------------- geometry
+
+
+@dataclass
+class _Geometry:
+    lam: float
+    z: float
+    f: float | None
+    lit: tuple[float, float, float, float] | None  # x0, x1, y0, y1 (finite)
+    unbounded: tuple[bool, bool, bool, bool]
+    screen: tuple[float, float, float, float]
+    dxs: float
+    dys: float
+    feature: float
+    babinet: bool
+    empty: bool
+
+
+def _finite_box(box):
+    return box is not None and all(math.isfinite(v) for v in box)
+
+
+def _geometry(setup: Setup) -> _Geometry:
+    src, ap, sc = setup.source, setup.aperture, setup.screen
+    lam, z = src.wavelength, sc.distance
+    f = sc.lens_focal_length
+    ny, nx = sc.shape_px()
+    screen = (sc.x - sc.width / 2, sc.x + sc.width / 2, sc.y - sc.height / 2, sc.y + sc.height / 2)
+    box = apertures.aperture_bounds(ap)
+    babinet = ap.background == "clear"
+    empty = box is None
+    if box is None:
+        box = (-math.inf, math.inf, -math.inf, math.inf) if not babinet else None
+    if babinet and box is not None and not _finite_box(box):
+        # An unbounded element on a clear background: no compact complement,
+        # compute the whole field on a tapered window instead.
+        babinet = False
+        box = (-math.inf, math.inf, -math.inf, math.inf)
+    src_box = sources.source_extent(src)
+    if box is not None and src_box is not None:
+        box = (
+            max(box[0], src_box[0]),
+            min(box[1], src_box[1]),
+            max(box[2], src_box[2]),
+            min(box[3], src_box[3]),
+        )
+        if box[0] >= box[1] or box[2] >= box[3]:
+            box = None
+            empty = True
+    unbounded = (False,) * 4
+    if box is not None and not _finite_box(box):
+        unbounded = tuple(not math.isfinite(v) for v in box)
+        # Lit region that matters: the screen window traced back along the beam,
+        # widened by several Fresnel zones; beyond it the aperture is tapered.
+        alpha, beta, _ = sources.direction_cosines(src)
+        zf = abs(z) if f is None else min(abs(z), abs(f))
+        margin = TAPER_FRESNEL_SCALES * math.sqrt(lam * zf)
+        win = (
+            screen[0] - z * alpha - margin,
+            screen[1] - z * alpha + margin,
+            screen[2] - z * beta - margin,
+            screen[3] - z * beta + margin,
+        )
+        box = (
+            win[0] if unbounded[0] else max(box[0], win[0] - margin),
+            win[1] if unbounded[1] else min(box[1], win[1] + margin),
+            win[2] if unbounded[2] else max(box[2], win[2] - margin),
+            win[3] if unbounded[3] else min(box[3], win[3] + margin),
+        )
+        if box[0] >= box[1] or box[2] >= box[3]:
+            box = None
+            empty = True
+    feature = apertures.smallest_feature(ap)
+    return _Geometry(
+        lam=lam,
+        z=z,
+        f=f,
+        lit=box,
+        unbounded=unbounded,
+        screen=screen,
+        dxs=sc.width / nx,
+        dys=sc.height / ny,
+        feature=feature,
+        babinet=babinet,
+        empty=empty,
+    )
+
+
+def _taper_width(g: _Geometry) -> float:
+    zf = abs(g.z) if g.f is None else min(abs(g.z), abs(g.f))
+    return TAPER_FRESNEL_SCALES * math.sqrt(g.lam * zf)
+
+
+def _lit_with_taper(g: _Geometry) -> tuple[float, float, float, float]:
+    """The lit box including the tapers on its unbounded sides."""
+    t = _taper_width(g)
+    x0, x1, y0, y1 = g.lit
+    u = g.unbounded
+    return (x0 - t * u[0], x1 + t * u[1], y0 - t * u[2], y1 + t * u[3])
+
+
+def _max_sep(a: tuple[float, float], b: tuple[float, float]) -> float:
+    """Largest |p − q| for p in interval a and q in interval b."""
+    return max(abs(a[1] - b[0]), abs(b[1] - a[0]))
+
+
+def _abs_max(a: tuple[float, float]) -> float:
+    return max(abs(a[0]), abs(a[1]))
+
+
+# --------------------------------------------------------------------------- method choice
+
+
+def _phases(g: _Geometry, box) -> dict:
+    """The neglected phases and the regime numbers at this geometry."""
+    lam, z = g.lam, g.z
+    half = 0.5 * max(box[1] - box[0], box[3] - box[2])
+    size = 2.0 * half
+    rho_ap = math.hypot(_abs_max(box[:2]), _abs_max(box[2:]))
+    inv_eff = abs(1.0 / z - (1.0 / g.f if g.f else 0.0))
+    rho_sep = math.hypot(_max_sep(box[:2], g.screen[:2]), _max_sep(box[2:], g.screen[2:]))
+    return {
+        "half": half,
+        "size": size,
+        "fresnel_number": half**2 / (lam * z),
+        "fraunhofer_distance": 2.0 * size**2 / lam,
+        "fraunhofer_phase": math.pi * rho_ap**2 * inv_eff / lam,
+        "paraxial_phase": math.pi * rho_sep**4 / (4.0 * lam * z**3),
+        "max_angle": math.atan2(rho_sep, z),
+        "rho_sep": rho_sep,
+    }
+
+
+def _auto_method(g: _Geometry, ph: dict, reasons: list[str]) -> str:
+    if g.f is None and ph["fraunhofer_phase"] <= AUTO_FRAUNHOFER_PHASE:
+        reasons.append(
+            f"far field: the quadratic phase across the aperture is "
+            f"{ph['fraunhofer_phase']:.3g} rad ≤ {AUTO_FRAUNHOFER_PHASE} rad, so the "
+            f"Fraunhofer transform is exact to the stated accuracy"
+        )
+        return "fraunhofer"
+    if g.f is not None and ph["fraunhofer_phase"] <= AUTO_FRAUNHOFER_PHASE:
+        reasons.append(
+            "screen in the lens's back focal plane: the lens makes the far field "
+            "there, computed as an exact Fourier transform"
+        )
+        return "fraunhofer"
+    if ph["paraxial_phase"] <= AUTO_PARAXIAL_PHASE:
+        reasons.append(
+            f"Fresnel zone: the paraxial phase error is {ph['paraxial_phase']:.3g} rad "
+            f"≤ {AUTO_PARAXIAL_PHASE} rad, while Fraunhofer would drop "
+            f"{ph['fraunhofer_phase']:.3g} rad"
+        )
+        return "fresnel"
+    reasons.append(
+        f"near field: the paraxial form would drop {ph['paraxial_phase']:.3g} rad, so "
+        "the exact (non-paraxial) band-limited angular spectrum is used"
+    )
+    return "angular_spectrum"
+
+
+# --------------------------------------------------------------------------- grids
+
+
+def _needed_frequency(g: _Geometry, box, src, *, paraxial_out: bool, axis: int) -> float:
+    """Highest spatial frequency the aperture samples must carry along one axis."""
+    lam, z = g.lam, g.z
+    a = box[2 * axis : 2 * axis + 2]
+    s = g.screen[2 * axis : 2 * axis + 2]
+    ftx, fty = sources.local_frequency(src, _abs_max(box[:2]), _abs_max(box[2:]))
+    f_src = (ftx, fty)[axis]
+    lens = _abs_max(a) / (lam * abs(g.f)) if g.f else 0.0
+    if paraxial_out:
+        # Fourier-transform route: output frequency x/(λz) plus the input chirp.
+        inv = abs(1.0 / z - (1.0 / g.f if g.f else 0.0))
+        return _abs_max(s) / (lam * z) + _abs_max(a) * inv / lam + f_src
+    sep = _max_sep(a, s)
+    return min(1.0 / lam, sep / math.hypot(sep, z) / lam + lens + f_src)
+
+
+def _fraction_pitch(g: _Geometry, extent: float) -> float:
+    p = extent / MIN_SAMPLES_ACROSS
+    if math.isfinite(g.feature):
+        p = min(p, g.feature / SAMPLES_PER_FEATURE)
+    return p
+
+
+def _bytes_per(dtype: str) -> int:
+    return 8 if dtype == "complex64" else 16
+
+
+def _plan_transform_route(g, box, src, setup, dtype, reasons, method, variant):
+    """Grid for the single-transform methods (Fraunhofer, Fresnel impulse response)."""
+    user = setup.numerics.grid
+    w, h = box[1] - box[0], box[3] - box[2]
+    if user:
+        nx = ny = user
+        dx, dy = w / (nx - 2), h / (ny - 2)
+        reasons.append(f"grid of {user}×{user} set by the user over the lit region")
+    else:
+        f_x = _needed_frequency(g, box, src, paraxial_out=True, axis=0)
+        f_y = _needed_frequency(g, box, src, paraxial_out=True, axis=1)
+        q = OVERSAMPLE_TRANSFORM
+        dx = min(_fraction_pitch(g, w), 1.0 / (2.0 * q * f_x) if f_x else math.inf)
+        dy = min(_fraction_pitch(g, h), 1.0 / (2.0 * q * f_y) if f_y else math.inf)
+        nx = max(2, math.ceil(w / dx))
+        ny = max(2, math.ceil(h / dy))
+        dx, dy = w / nx, h / ny  # pixel edges on the box edges
+        nx, ny = nx + 2, ny + 2  # an empty pixel on each side for the edge correction
+        reasons.append(
+            f"aperture grid {ny}×{nx} at {dy * 1e6:.3g}×{dx * 1e6:.3g} µm: resolves the "
+            f"smallest feature and the highest screen frequency with {q:g}× margin"
+        )
+    sny, snx = setup.screen.shape_px()
+    b = _bytes_per(dtype)
+    mem = b * (3 * nx * ny + nx * snx + ny * sny + 2 * ny * snx + 3 * sny * snx)
+    centre = (0.5 * (box[0] + box[1]), 0.5 * (box[2] + box[3]))
+    return method, variant, nx, ny, dx, dy, (ny, nx), mem, centre, "points", (1, 1)
+
+
+def _plan_convolution_route(g, box, src, setup, dtype, reasons, method, variant):
+    """Grid for the FFT convolution methods (angular spectrum, Fresnel transfer function).
+
+    The window holds the lit region and the screen window; it is zero-padded to
+    twice that so the circular convolution of the FFT equals the linear one.
+    The pitch divides the screen pixel pitch, and the grid is placed so that
+    screen pixel centres fall on grid samples: the screen is read off the
+    inverse FFT without interpolation.
+    """
+    user = setup.numerics.grid
+    s = g.screen
+    ux0, ux1 = min(box[0], s[0]), max(box[1], s[1])
+    uy0, uy1 = min(box[2], s[2]), max(box[3], s[3])
+    lx, ly = ux1 - ux0, uy1 - uy0
+    # The band-limited kernel reaches λ z u_limit ≈ L/2 from each point; it must
+    # span the largest aperture-to-screen separation plus several Fresnel zones,
+    # or the ringing of its cut-off reaches the window. 2.5 rather than 2: the top
+    # fifth of the band is rolled off.
+    reach = math.sqrt(g.lam * abs(g.z)) * KERNEL_REACH_FRESNEL_SCALES
+    span_x = max(2.0 * lx, 2.5 * (_max_sep(box[:2], s[:2]) + reach))
+    span_y = max(2.0 * ly, 2.5 * (_max_sep(box[2:], s[2:]) + reach))
+    if user:
+        big_x = big_y = user
+        dx, dy = span_x / user, span_y / user
+        mx = my = 0
+        reasons.append(f"FFT grid {user}×{user} set by the user over twice the window")
+    else:
+        f_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
+        f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
+        px = min(_fraction_pitch(g, box[1] - box[0]), 1.0 / (2.0 * OVERSAMPLE * f_x))
+        py = min(_fraction_pitch(g, box[3] - box[2]), 1.0 / (2.0 * OVERSAMPLE * f_y))
+        mx = max(1, math.ceil(g.dxs / px))
+        my = max(1, math.ceil(g.dys / py))
+        dx, dy = g.dxs / mx, g.dys / my
+        big_x = next_fast_len(math.ceil(span_x / dx) + 4)
+        big_y = next_fast_len(math.ceil(span_y / dy) + 4)
+        reasons.append(
+            f"FFT grid {big_y}×{big_x} at {dy * 1e6:.3g}×{dx * 1e6:.3g} µm "
+            f"({my}×{mx} samples per screen pixel): holds the lit region and the screen "
+            f"window twice over, and the steepest needed angle with {OVERSAMPLE:g}× margin"
+        )
+    sny, snx = setup.screen.shape_px()
+    b = _bytes_per(dtype)
+    mem = b * (3 * big_x * big_y) + 8 * snx * sny * 4
+    if not user:
+        # Centre the grid on a screen pixel nearest the middle of the union.
+        xs, ys = screen_axes(setup)
+        cx_mid = 0.5 * (ux0 + ux1)
+        cy_mid = 0.5 * (uy0 + uy1)
+        cx = xs[0] + round((cx_mid - xs[0]) / dx) * dx
+        cy = ys[0] + round((cy_mid - ys[0]) / dy) * dy
+        output, step = "grid", (mx, my)
+    else:
+        cx, cy = 0.5 * (ux0 + ux1), 0.5 * (uy0 + uy1)
+        output, step = "points", (1, 1)
+        mem += b * (big_x * big_y + big_x * snx + big_y * sny)
+    n_ap_x = max(2, math.ceil((box[1] - box[0]) / dx) + 2)
+    n_ap_y = max(2, math.ceil((box[3] - box[2]) / dy) + 2)
+    return method, variant, n_ap_x, n_ap_y, dx, dy, (big_y, big_x), mem, (cx, cy), output, step
+
+
+def _plan_direct_route(g, box, src, setup, dtype, reasons):
+    user = setup.numerics.grid
+    w, h = box[1] - box[0], box[3] - box[2]
+    if user:
+        nx = ny = user
+    else:
+        f_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
+        f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
+        px = min(_fraction_pitch(g, w), 1.0 / (2.0 * OVERSAMPLE * f_x))
+        py = min(_fraction_pitch(g, h), 1.0 / (2.0 * OVERSAMPLE * f_y))
+        nx, ny = max(2, math.ceil(w / px)), max(2, math.ceil(h / py))
+    dx, dy = w / nx, h / ny
+    sny, snx = setup.screen.shape_px()
+    pairs = float(nx * ny) * snx * sny
+    if pairs > MAX_DIRECT_PAIRS:
+        raise SetupError(
+            "numerics.method",
+            f"direct Rayleigh–Sommerfeld integration would sum {pairs:.2g} sample pairs "
+            f"(aperture {ny}×{nx} × screen {sny}×{snx}), over the {MAX_DIRECT_PAIRS:.0e} "
+            "limit; lower screen.samples, narrow the window, or choose another method",
+        )
+    reasons.append(
+        f"direct Rayleigh–Sommerfeld sum over {ny}×{nx} aperture samples at every one of "
+        f"{sny}×{snx} screen pixels"
+    )
+    mem = 16 * (3 * nx * ny + 4_000_000 * 3 + snx * sny * 2)
+    centre = (0.5 * (box[0] + box[1]), 0.5 * (box[2] + box[3]))
+    return (
+        "rayleigh_sommerfeld",
+        "direct",
+        nx,
+        ny,
+        dx,
+        dy,
+        (ny, nx),
+        mem,
+        centre,
+        "points",
+        (1, 1),
+    )
+
+
+# --------------------------------------------------------------------------- report
+
+
+def _verdict(value: float, limits: tuple[float, float]) -> str:
+    if not math.isfinite(value):
+        return "invalid"
+    if value <= limits[0]:
+        return "ok"
+    return "marginal" if value <= limits[1] else "invalid"
+
+
+def _verdict_low(value: float, limits: tuple[float, float]) -> str:
+    """Verdict for a margin that must be large: ok ≥ limits[0], marginal ≥ limits[1]."""
+    if value >= limits[0]:
+        return "ok"
+    return "marginal" if value >= limits[1] else "invalid"
+
+
+def _finest_period(g: _Geometry, box) -> float:
+    """Finest fringe period the pattern can hold on the screen, m.
+
+    Two aperture points at the extremes of the lit region interfere with a
+    local period λ / |sin θ₁ − sin θ₂| (common practice, no source).
+    """
+    best = math.inf
+    for ax in (0, 1):
+        a = box[2 * ax : 2 * ax + 2]
+        s = g.screen[2 * ax : 2 * ax + 2]
+        for xs in (s[0], 0.5 * (s[0] + s[1]), s[1]):
+            t1 = math.atan2(xs - a[0], g.z)
+            t2 = math.atan2(xs - a[1], g.z)
+            d = abs(math.sin(t1) - math.sin(t2))
+            if d > 0:
+                best = min(best, g.lam / d)
+    return best
+
+
+def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[ValidityItem]:
+    items: list[ValidityItem] = []
+    nf = ph["fresnel_number"]
+    far = method == "fraunhofer"
+    paraxial = method in ("fraunhofer", "fresnel")
+    lens = g.f is not None
+    if far and not lens:
+        v = _verdict(nf, (0.1, 1.0))
+        s = {
+            "ok": "small enough for the far field",
+            "marginal": "the far-field form starts to miss the Fresnel-zone structure",
+            "invalid": "the screen is in the Fresnel zone or nearer; the far-field "
+            "pattern is wrong here",
+        }[v]
+    else:
+        v = "ok"
+        s = "the far field" if nf < 0.1 else "the Fresnel zone" if nf < 10 else "the near field"
+        s = f"the screen is in {s}; {method.replace('_', ' ')} holds at any Fresnel number"
+    items.append(
+        ValidityItem(
+            "fresnel_number",
+            "Fresnel number a²/(λz)",
+            nf,
+            0.1 if far else math.inf,
+            "",
+            v,
+            f"N_F = {nf:.3g}: {s}.",
+        )
+    )
+    zf = ph["fraunhofer_distance"]
+    if far and not lens:
+        v = _verdict(zf / g.z, (1.0, 10.0))
+        s = (
+            f"the screen at {g.z:.3g} m is {'beyond' if g.z >= zf else 'inside'} the "
+            f"Fraunhofer distance {zf:.3g} m"
+        )
+    else:
+        v = "ok"
+        s = f"the Fraunhofer distance is {zf:.3g} m; this method does not rely on it"
+    items.append(
+        ValidityItem(
+            "fraunhofer_distance",
+            "Fraunhofer distance 2D²/λ",
+            zf,
+            g.z,
+            "m",
+            v,
+            s[0].upper() + s[1:] + ".",
+        )
+    )
+    fp = ph["fraunhofer_phase"]
+    if far:
+        v = _verdict(fp, FRAUNHOFER_PHASE_LIMITS)
+        s = f"The far-field form drops a quadratic phase of up to {fp:.3g} rad across the aperture."
+    else:
+        v = "ok"
+        s = f"A far-field form would drop {fp:.3g} rad; {method.replace('_', ' ')} keeps it."
+    items.append(
+        ValidityItem(
+            "fraunhofer_phase",
+            "Quadratic phase dropped by Fraunhofer",
+            fp,
+            FRAUNHOFER_PHASE_LIMITS[0],
+            "rad",
+            v,
+            s,
+        )
+    )
+    pp = ph["paraxial_phase"]
+    if paraxial:
+        v = _verdict(pp, PARAXIAL_PHASE_LIMITS)
+        s = f"The paraxial form drops a quartic phase of up to {pp:.3g} rad at the window's edge."
+    else:
+        v = "ok"
+        s = f"The paraxial form would drop {pp:.3g} rad; this method is non-paraxial."
+    items.append(
+        ValidityItem(
+            "paraxial_phase",
+            "Quartic phase dropped by Fresnel",
+            pp,
+            PARAXIAL_PHASE_LIMITS[0],
+            "rad",
+            v,
+            s,
+        )
+    )
+    ang = ph["max_angle"]
+    v = _verdict(ang, ANGLE_LIMITS)
+    items.append(
+        ValidityItem(
+            "max_angle",
+            "Largest angle on the screen",
+            ang,
+            ANGLE_LIMITS[0],
+            "rad",
+            v,
+            f"Rays reach the screen at up to {math.degrees(ang):.3g}°"
+            + (
+                "; scalar theory is sound there."
+                if v == "ok"
+                else "; polarisation and obliquity effects that scalar theory ignores grow there."
+            ),
+        )
+    )
+    if math.isfinite(g.feature):
+        per = g.feature / min(dx, dy) if method != "fraunhofer" else g.feature / max(dx, dy)
+        per = g.feature / max(dx, dy)
+        v = _verdict_low(per, (4.0, 2.0))
+        items.append(
+            ValidityItem(
+                "aperture_sampling",
+                "Samples across the smallest feature",
+                per,
+                4.0,
+                "",
+                v,
+                f"The smallest aperture feature ({g.feature * 1e6:.3g} µm) spans "
+                f"{per:.3g} samples.",
+            )
+        )
+    # Bandwidth: the grid's Nyquist frequency against the highest frequency needed.
+    src = setup.source
+    f_need = max(
+        _needed_frequency(g, box, src, paraxial_out=paraxial and method != "fresnel", axis=0) * dx,
+        _needed_frequency(g, box, src, paraxial_out=paraxial and method != "fresnel", axis=1) * dy,
+    )
+    margin = 0.5 / f_need if f_need > 0 else math.inf
+    v = _verdict_low(margin, (1.0, 0.5))
+    items.append(
+        ValidityItem(
+            "bandwidth",
+            "Grid bandwidth over the needed bandwidth",
+            margin,
+            1.0,
+            "",
+            v,
+            f"The grid carries {margin:.3g}× the highest spatial frequency that reaches the "
+            "screen window.",
+        )
+    )
+    if variant == "transfer_function":
+        crit = min(dx * padded[1] * dx, dy * padded[0] * dy) / (g.lam * g.z)
+        v = _verdict_low(crit, (1.0, 0.5))
+        items.append(
+            ValidityItem(
+                "transfer_function_sampling",
+                "Pitch over λz/L (transfer-function form)",
+                crit,
+                1.0,
+                "",
+                v,
+                "The Fresnel transfer function is sampled without aliasing when the pitch is "
+                f"at least λz/L; here the ratio is {crit:.3g}.",
+            )
+        )
+    if method == "angular_spectrum":
+        ulx = band_limit_of(padded[1], dx, g.lam, g.z)
+        uly = band_limit_of(padded[0], dy, g.lam, g.z)
+        need_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
+        need_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
+        r = min(ulx / need_x if need_x else math.inf, uly / need_y if need_y else math.inf)
+        v = _verdict_low(r, (1.0, 0.7))
+        items.append(
+            ValidityItem(
+                "band_limit",
+                "Band limit over the needed bandwidth",
+                r,
+                1.0,
+                "",
+                v,
+                f"The band limit keeps {min(r, 99):.3g}× the frequencies that reach the window.",
+            )
+        )
+    period = _finest_period(g, box)
+    ratio = period / (2.0 * max(g.dxs, g.dys))
+    v = _verdict_low(ratio, (1.0, 0.5))
+    items.append(
+        ValidityItem(
+            "screen_sampling",
+            "Finest fringe over two screen pixels",
+            ratio,
+            1.0,
+            "",
+            v,
+            f"The finest fringe period the pattern can hold is {period * 1e6:.3g} µm "
+            + (
+                "; the screen pixels resolve it."
+                if v == "ok"
+                else "; the screen pixels are too coarse to resolve it (raise screen.samples)."
+            ),
+        )
+    )
+    if any(g.unbounded):
+        v = "invalid" if far else "ok"
+        items.append(
+            ValidityItem(
+                "window",
+                "Unbounded aperture",
+                _taper_width(g),
+                math.inf,
+                "m",
+                v,
+                "The aperture is unbounded; it is computed over the region that reaches the "
+                "window, with smooth edges "
+                + (
+                    "— a far-field pattern does not exist for it."
+                    if far
+                    else "several Fresnel zones wide."
+                ),
+            )
+        )
+    return items
+
+
+def band_limit_of(n: int, d: float, lam: float, z: float) -> float:
+    du = 1.0 / (n * d)
+    return 1.0 / (lam * math.sqrt((2.0 * du * z) ** 2 + 1.0))
+
+
+# --------------------------------------------------------------------------- entry point
+
+
+def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
+    """Plan the computation of ``setup``: method, grid, pitch, padding and the report.
+
+    Raises
+    ------
+    SetupError
+        When the setup breaks a cross-parameter rule, or the computation would
+        need more than ``memory_limit`` bytes; the message says what to change.
+    """
+    problems = setup.check()
+    if problems:
+        raise SetupError(*problems[0])
+    g = _geometry(setup)
+    src = setup.source
+    dtype = "complex64" if setup.numerics.precision == "single" else "complex128"
+    reasons: list[str] = []
+    requested = setup.numerics.method
+    if g.babinet:
+        reasons.append(
+            "clear background: the unobstructed beam is added in closed form and only the "
+            "complement of the aperture is propagated (Babinet's principle)"
+        )
+    if any(g.unbounded):
+        reasons.append(
+            "the aperture is unbounded: it is computed over the region that reaches the "
+            f"window, tapered smoothly over {_taper_width(g) * 1e3:.3g} mm"
+        )
+    if g.lit is None:
+        reasons.append("no light passes the aperture except the closed-form beam")
+        box = (-1e-6, 1e-6, -1e-6, 1e-6)
+        ph = _phases(g, box)
+        p = Plan(
+            method=requested if requested != "auto" else "fraunhofer",
+            variant="closed_form",
+            nx=0,
+            ny=0,
+            dx=0.0,
+            dy=0.0,
+            padded=(0, 0),
+            reasons=reasons,
+            memory_bytes=0,
+            fresnel_number=0.0,
+            babinet=g.babinet,
+            dtype=dtype,
+        )
+        return p
+    box = _lit_with_taper(g)
+    ph = _phases(g, box)
+    if requested == "auto":
+        method = _auto_method(g, ph, reasons)
+    else:
+        method = requested
+        reasons.append(f"method {method.replace('_', ' ')} chosen by the user")
+    if method == "fraunhofer":
+        variant = "lens_focal_plane" if g.f is not None else "far_field"
+        route = _plan_transform_route(g, box, src, setup, dtype, reasons, method, variant)
+    elif method == "fresnel":
+        # Voelz's criterion: the transfer function suits short distances (pitch ≥ λz/L),
+        # the impulse response long ones.
+        trial = _plan_convolution_route(g, box, src, setup, dtype, [], method, "transfer_function")
+        dx_t, big_x = trial[4], trial[6][1]
+        if dx_t * dx_t * big_x >= g.lam * g.z:
+            reasons.append(
+                f"Fresnel transfer-function form: pitch {dx_t * 1e6:.3g} µm ≥ λz/L = "
+                f"{g.lam * g.z / (dx_t * big_x) * 1e6:.3g} µm (short distance)"
+            )
+            route = _plan_convolution_route(
+                g, box, src, setup, dtype, reasons, method, "transfer_function"
+            )
+        else:
+            reasons.append(
+                "Fresnel impulse-response form onto the screen pixels: the pitch is below "
+                "λz/L (long distance)"
+            )
+            route = _plan_transform_route(
+                g, box, src, setup, dtype, reasons, method, "impulse_response"
+            )
+    elif method == "angular_spectrum":
+        route = _plan_convolution_route(g, box, src, setup, dtype, reasons, method, "band_limited")
+    else:
+        route = _plan_direct_route(g, box, src, setup, dtype, reasons)
+    method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
+    if mem > memory_limit:
+        path = "numerics.grid" if setup.numerics.grid else "screen.distance"
+        fix = (
+            "lower numerics.grid"
+            if setup.numerics.grid
+            else "increase the distance, narrow the screen window, use fewer screen samples, "
+            "or shrink the aperture"
+        )
+        raise SetupError(
+            path,
+            f"the computation needs about {mem / 2**30:.3g} GiB "
+            f"(grid {padded[0]}×{padded[1]}), over the {memory_limit / 2**30:.3g} GiB limit; {fix}",
+        )
+    p = Plan(
+        method=method,
+        variant=variant,
+        nx=nx,
+        ny=ny,
+        dx=dx,
+        dy=dy,
+        padded=padded,
+        reasons=reasons,
+        memory_bytes=int(mem),
+        fresnel_number=ph["fresnel_number"],
+        grid_centre=centre,
+        lit_box=g.lit,
+        taper=(
+            tuple(_taper_width(g) if u else 0.0 for u in g.unbounded) if any(g.unbounded) else None
+        ),
+        babinet=g.babinet,
+        dtype=dtype,
+        output=output,
+        step=step,
+    )
+    p.validity = _report(g, box, ph, method, variant, dx, dy, padded, setup)
+    return p
