@@ -279,10 +279,10 @@ class Screen(param.Parameterized):
     """The observed window behind the aperture (or behind the lens, when one is set)."""
 
     distance = _length(1.0, "Distance from the aperture (or lens) to the screen, m.", upper=1e6)
-    width = _length(0.02, "Width of the observed window, m.", upper=100.0)
-    height = _length(0.01, "Height of the observed window, m.", upper=100.0)
-    x = param.Number(0.0, bounds=(-100.0, 100.0), doc="Window centre, x, m.", metadata={"unit": "m"})
-    y = param.Number(0.0, bounds=(-100.0, 100.0), doc="Window centre, y, m.", metadata={"unit": "m"})
+    width = _length(0.02, "Width of the observed window, m.", upper=1e3)
+    height = _length(0.01, "Height of the observed window, m.", upper=1e3)
+    x = param.Number(0.0, bounds=(-1e3, 1e3), doc="Window centre, x, m.", metadata={"unit": "m"})
+    y = param.Number(0.0, bounds=(-1e3, 1e3), doc="Window centre, y, m.", metadata={"unit": "m"})
     samples = param.Integer(
         400,
         bounds=(2, 4096),
