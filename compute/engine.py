@@ -259,10 +259,10 @@ def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple
     # Aperture samples only where light passes; zeros elsewhere are the padding.
     box = p.lit_box
     tx = p.taper or (0, 0, 0, 0)
-    i0 = max(0, int(math.floor((box[0] - tx[0] - gx[0]) / p.dx)) - 1)
-    i1 = min(big_x, int(math.ceil((box[1] + tx[1] - gx[0]) / p.dx)) + 2)
-    j0 = max(0, int(math.floor((box[2] - tx[2] - gy[0]) / p.dy)) - 1)
-    j1 = min(big_y, int(math.ceil((box[3] + tx[3] - gy[0]) / p.dy)) + 2)
+    i0 = max(0, math.floor((box[0] - tx[0] - gx[0]) / p.dx) - 1)
+    i1 = min(big_x, math.ceil((box[1] + tx[1] - gx[0]) / p.dx) + 2)
+    j0 = max(0, math.floor((box[2] - tx[2] - gy[0]) / p.dy) - 1)
+    j1 = min(big_y, math.ceil((box[3] + tx[3] - gy[0]) / p.dy) + 2)
     sub_x, sub_y = gx[i0:i1], gy[j0:j1]
     u = _aperture_field(setup, p, sub_x, sub_y)
     power_in = float(np.sum(np.abs(u.astype(np.complex128)) ** 2) * p.dx * p.dy)
@@ -278,8 +278,8 @@ def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple
     if p.output == "grid":
         out = propagators.propagate_fft(full, kern)
         mx, my = p.step
-        ci = int(round((xs[0] - gx[0]) / p.dx))
-        cj = int(round((ys[0] - gy[0]) / p.dy))
+        ci = round((xs[0] - gx[0]) / p.dx)
+        cj = round((ys[0] - gy[0]) / p.dy)
         field = out[cj : cj + my * len(ys) : my, ci : ci + mx * len(xs) : mx]
         if field.shape != (len(ys), len(xs)):
             raise SetupError(

@@ -300,7 +300,7 @@ class Screen(param.Parameterized):
     def shape_px(self) -> tuple[int, int]:
         """Screen pixels ``(ny, nx)``: ``samples`` across, the height by the aspect ratio."""
         nx = int(self.samples)
-        ny = max(1, int(round(nx * self.height / self.width)))
+        ny = max(1, round(nx * self.height / self.width))
         return ny, nx
 
     def check(self):

@@ -63,8 +63,8 @@ OVERSAMPLE_TRANSFORM = 4.0
 SAMPLES_PER_FEATURE = 6.0
 MIN_SAMPLES_ACROSS = 64
 MAX_DIRECT_PAIRS = 2.0e9  # aperture samples × screen points for direct integration
-TAPER_FRESNEL_SCALES = 8.0
-KERNEL_REACH_FRESNEL_SCALES = 4.0  # convolution kernels reach this far beyond the window  # margin and taper of an unbounded aperture, in √(λz)
+TAPER_FRESNEL_SCALES = 4.0  # margin and taper of an unbounded aperture, in √(λz)
+KERNEL_REACH_FRESNEL_SCALES = 4.0  # convolution kernels reach this far beyond the window
 
 METHODS = ("fraunhofer", "fresnel", "angular_spectrum", "rayleigh_sommerfeld")
 
@@ -269,15 +269,37 @@ def _phases(g: _Geometry, box) -> dict:
     inv_eff = abs(1.0 / z - (1.0 / g.f if g.f else 0.0))
     rho_sep = math.hypot(_max_sep(box[:2], g.screen[:2]), _max_sep(box[2:], g.screen[2:]))
     return {
+        "paraxial_phase": _quartic_phase(box, g.screen, lam, z),
         "half": half,
         "size": size,
         "fresnel_number": half**2 / (lam * z),
         "fraunhofer_distance": 2.0 * size**2 / lam,
         "fraunhofer_phase": math.pi * rho_ap**2 * inv_eff / lam,
-        "paraxial_phase": math.pi * rho_sep**4 / (4.0 * lam * z**3),
         "max_angle": math.atan2(rho_sep, z),
         "rho_sep": rho_sep,
     }
+
+
+def _quartic_phase(box, screen, lam: float, z: float) -> float:
+    """Largest spread across the aperture of the quartic term the Fresnel form drops.
+
+    The distance expansion r ≈ z + d²/(2z) − d⁴/(8z³), d the lateral separation,
+    drops k d⁴/(8z³) (Goodman §4.2, eq. 4-18). Only its variation across the
+    aperture changes the pattern — a part common to all aperture points is a
+    phase of the screen pixel — so the report takes, for each screen point, the
+    range of the term over the aperture, and the largest such range.
+    """
+    sx = np.linspace(screen[0], screen[1], 5)
+    sy = np.linspace(screen[2], screen[3], 5)
+    ax = np.linspace(box[0], box[1], 5)
+    ay = np.linspace(box[2], box[3], 5)
+    px, py = np.meshgrid(sx, sy, indexing="ij")
+    qx, qy = np.meshgrid(ax, ay, indexing="ij")
+    d2 = (px.ravel()[:, None] - qx.ravel()[None, :]) ** 2 + (
+        py.ravel()[:, None] - qy.ravel()[None, :]
+    ) ** 2
+    spread = np.max(np.ptp(d2 * d2, axis=1))
+    return float(math.pi * spread / (4.0 * lam * z**3))
 
 
 def _auto_method(g: _Geometry, ph: dict, reasons: list[str]) -> str:
@@ -811,6 +833,20 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
     else:
         route = _plan_direct_route(g, box, src, setup, dtype, reasons)
     method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
+    if mem > memory_limit and requested == "auto" and method == "angular_spectrum":
+        # The exact method does not fit; the paraxial one may, and the report says
+        # what it drops.
+        alt = _plan_transform_route(g, box, src, setup, dtype, [], "fresnel", "impulse_response")
+        if alt[7] <= memory_limit:
+            reasons.append(
+                f"the angular spectrum would need {mem / 2**30:.3g} GiB, over the "
+                f"{memory_limit / 2**30:.3g} GiB limit: Fresnel is used instead and the "
+                "report shows what it drops"
+            )
+            route = _plan_transform_route(
+                g, box, src, setup, dtype, reasons, "fresnel", "impulse_response"
+            )
+            method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
     if mem > memory_limit:
         path = "numerics.grid" if setup.numerics.grid else "screen.distance"
         fix = (

@@ -105,10 +105,7 @@ def matrix_dft(
     nfy, nfx = len(fy), len(fx)
     cost_x_first = ny * nx * nfx + nfy * ny * nfx
     cost_y_first = nfy * ny * nx + nfy * nx * nfx
-    if cost_x_first <= cost_y_first:
-        out = ey @ (u @ ex)
-    else:
-        out = (ey @ u) @ ex
+    out = ey @ (u @ ex) if cost_x_first <= cost_y_first else ey @ u @ ex
     out *= dx * dy
     return out
 

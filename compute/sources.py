@@ -146,10 +146,7 @@ def free_field(
             "lens, or a Gaussian source",
         )
     if source.kind == "plane":
-        if paraxial:
-            phase_z = k * z * (1.0 - 0.5 * (alpha**2 + beta**2))
-        else:
-            phase_z = k * z * gamma
+        phase_z = k * z * (1.0 - 0.5 * (alpha**2 + beta**2)) if paraxial else k * z * gamma
         return (
             math.sqrt(source.irradiance)
             * np.exp(1j * phase_z)
