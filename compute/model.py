@@ -40,7 +40,10 @@ MAX_POLYGON_VERTICES = 1000
 MAX_GRATING_COUNT = 100_000
 
 
-def _length(default, doc, *, lower=0.0, upper=MAX_LENGTH, open_lower=True, **kw):
+MIN_LENGTH = 1e-10  # m; below an atom's size no scalar diffraction applies
+
+
+def _length(default, doc, *, lower=MIN_LENGTH, upper=MAX_LENGTH, open_lower=False, **kw):
     return param.Number(
         default,
         bounds=(lower, upper),
@@ -159,7 +162,7 @@ class Annulus(Element):
 
     shape = "annulus"
     diameter = _length(2e-3, "Outer diameter, m.")
-    inner_diameter = _length(1e-3, "Inner diameter, m.", open_lower=False)
+    inner_diameter = _length(1e-3, "Inner diameter, m.", lower=0.0)
 
     def check(self):
         if self.inner_diameter >= self.diameter:

@@ -356,6 +356,22 @@ def _fraction_pitch(g: _Geometry, extent: float) -> float:
     return p
 
 
+MAX_SAMPLES_PER_SIDE = 1 << 20
+KERNEL_BUILD_BYTES = 64  # per grid sample, measured with tracemalloc
+
+
+def _count(span: float, pitch: float, path: str, extra: int = 0) -> int:
+    """Samples of ``pitch`` across ``span``, refused when absurdly many."""
+    n = span / pitch if pitch > 0 else math.inf
+    if not math.isfinite(n) or n > MAX_SAMPLES_PER_SIDE:
+        raise SetupError(
+            path,
+            f"the grid would need {n:.3g} samples per side (at most {MAX_SAMPLES_PER_SIDE}); "
+            "the sizes of the aperture and the screen window are too far apart",
+        )
+    return max(2, math.ceil(n)) + extra
+
+
 def _bytes_per(dtype: str) -> int:
     return 8 if dtype == "complex64" else 16
 
@@ -374,12 +390,12 @@ def _plan_transform_route(g, box, src, setup, dtype, reasons, method, variant):
         q = OVERSAMPLE_TRANSFORM
         dx = min(_fraction_pitch(g, w), 1.0 / (2.0 * q * f_x) if f_x else math.inf)
         dy = min(_fraction_pitch(g, h), 1.0 / (2.0 * q * f_y) if f_y else math.inf)
-        nx = max(2, math.ceil(w / dx))
-        ny = max(2, math.ceil(h / dy))
+        nx = _count(w, dx, "aperture.elements")
+        ny = _count(h, dy, "aperture.elements")
         dx, dy = w / nx, h / ny  # pixel edges on the box edges
         nx, ny = nx + 2, ny + 2  # an empty pixel on each side for the edge correction
         reasons.append(
-            f"aperture grid {ny}×{nx} at {dy * 1e6:.3g}×{dx * 1e6:.3g} µm: resolves the "
+            f"aperture grid {ny}×{nx} at {length_text(dy)} × {length_text(dx)}: resolves the "
             f"smallest feature and the highest screen frequency with {q:g}× margin"
         )
     sny, snx = setup.screen.shape_px()
@@ -420,19 +436,21 @@ def _plan_convolution_route(g, box, src, setup, dtype, reasons, method, variant)
         f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
         px = min(_fraction_pitch(g, box[1] - box[0]), 1.0 / (2.0 * OVERSAMPLE * f_x))
         py = min(_fraction_pitch(g, box[3] - box[2]), 1.0 / (2.0 * OVERSAMPLE * f_y))
-        mx = max(1, math.ceil(g.dxs / px))
-        my = max(1, math.ceil(g.dys / py))
+        mx = _count(g.dxs, px, "screen.samples") if g.dxs > px else 1
+        my = _count(g.dys, py, "screen.samples") if g.dys > py else 1
         dx, dy = g.dxs / mx, g.dys / my
-        big_x = next_fast_len(math.ceil(span_x / dx) + 4)
-        big_y = next_fast_len(math.ceil(span_y / dy) + 4)
+        big_x = next_fast_len(_count(span_x, dx, "screen.width", 4))
+        big_y = next_fast_len(_count(span_y, dy, "screen.height", 4))
         reasons.append(
-            f"FFT grid {big_y}×{big_x} at {dy * 1e6:.3g}×{dx * 1e6:.3g} µm "
+            f"FFT grid {big_y}×{big_x} at {length_text(dy)} × {length_text(dx)} "
             f"({my}×{mx} samples per screen pixel): holds the lit region and the screen "
             f"window twice over, and the steepest needed angle with {OVERSAMPLE:g}× margin"
         )
     sny, snx = setup.screen.shape_px()
     b = _bytes_per(dtype)
-    mem = b * (3 * big_x * big_y) + 8 * snx * sny * 4
+    # Three grid arrays (field, spectrum, kernel) plus the float64 temporaries of
+    # building the kernel once.
+    mem = (3 * b + KERNEL_BUILD_BYTES) * big_x * big_y + 8 * snx * sny * 4
     if not user:
         # Centre the grid on a screen pixel nearest the middle of the union.
         xs, ys = screen_axes(setup)
@@ -460,7 +478,7 @@ def _plan_direct_route(g, box, src, setup, dtype, reasons):
         f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
         px = min(_fraction_pitch(g, w), 1.0 / (2.0 * OVERSAMPLE * f_x))
         py = min(_fraction_pitch(g, h), 1.0 / (2.0 * OVERSAMPLE * f_y))
-        nx, ny = max(2, math.ceil(w / px)), max(2, math.ceil(h / py))
+        nx, ny = _count(w, px, "aperture.elements"), _count(h, py, "aperture.elements")
     dx, dy = w / nx, h / ny
     sny, snx = setup.screen.shape_px()
     pairs = float(nx * ny) * snx * sny
@@ -493,6 +511,17 @@ def _plan_direct_route(g, box, src, setup, dtype, reasons):
 
 
 # --------------------------------------------------------------------------- report
+
+
+def length_text(m: float) -> str:
+    """A length in the unit a bench uses for it: nm, µm, mm or m."""
+    a = abs(m)
+    if not math.isfinite(a):
+        return "unbounded"
+    for unit, scale in (("m", 1.0), ("mm", 1e-3), ("µm", 1e-6)):
+        if a >= scale:
+            return f"{m / scale:.3g} {unit}"
+    return f"{m / 1e-9:.3g} nm"
 
 
 def _verdict(value: float, limits: tuple[float, float]) -> str:
@@ -535,7 +564,20 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
     far = method == "fraunhofer"
     paraxial = method in ("fraunhofer", "fresnel")
     lens = g.f is not None
-    if far and not lens:
+    if lens:
+        # Behind a lens the regime is set by the effective distance 1/|1/z − 1/f|.
+        inv = abs(1.0 / g.z - 1.0 / g.f)
+        nf_eff = ph["half"] ** 2 * inv / g.lam
+        v = _verdict(nf_eff, (0.1, 1.0)) if far else "ok"
+        place = "the lens's far field (its focal plane)" if nf_eff < 0.1 else (
+            "the lens's Fresnel zone, out of focus"
+        )
+        s = (
+            f"with the lens the effective Fresnel number a²|1/z − 1/f|/λ is {nf_eff:.3g}: "
+            f"the screen is in {place}"
+        )
+        limit = 0.1 if far else math.inf
+    elif far:
         v = _verdict(nf, (0.1, 1.0))
         s = {
             "ok": "small enough for the far field",
@@ -543,16 +585,18 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
             "invalid": "the screen is in the Fresnel zone or nearer; the far-field "
             "pattern is wrong here",
         }[v]
+        limit = 0.1
     else:
         v = "ok"
         s = "the far field" if nf < 0.1 else "the Fresnel zone" if nf < 10 else "the near field"
         s = f"the screen is in {s}; {method.replace('_', ' ')} holds at any Fresnel number"
+        limit = math.inf
     items.append(
         ValidityItem(
             "fresnel_number",
             "Fresnel number a²/(λz)",
             nf,
-            0.1 if far else math.inf,
+            limit,
             "",
             v,
             f"N_F = {nf:.3g}: {s}.",
@@ -645,7 +689,7 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
                 4.0,
                 "",
                 v,
-                f"The smallest aperture feature ({g.feature * 1e6:.3g} µm) spans "
+                f"The smallest aperture feature ({length_text(g.feature)}) spans "
                 f"{per:.3g} samples.",
             )
         )
@@ -713,7 +757,7 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
             1.0,
             "",
             v,
-            f"The finest fringe period the pattern can hold is {period * 1e6:.3g} µm "
+            f"The finest fringe period the pattern can hold is {length_text(period)}"
             + (
                 "; the screen pixels resolve it."
                 if v == "ok"
@@ -776,7 +820,7 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
     if any(g.unbounded):
         reasons.append(
             "the aperture is unbounded: it is computed over the region that reaches the "
-            f"window, tapered smoothly over {_taper_width(g) * 1e3:.3g} mm"
+            f"window, tapered smoothly over {length_text(_taper_width(g))}"
         )
     if g.lit is None:
         reasons.append("no light passes the aperture except the closed-form beam")
@@ -814,8 +858,8 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
         dx_t, big_x = trial[4], trial[6][1]
         if dx_t * dx_t * big_x >= g.lam * g.z:
             reasons.append(
-                f"Fresnel transfer-function form: pitch {dx_t * 1e6:.3g} µm ≥ λz/L = "
-                f"{g.lam * g.z / (dx_t * big_x) * 1e6:.3g} µm (short distance)"
+                f"Fresnel transfer-function form: pitch {length_text(dx_t)} ≥ λz/L = "
+                f"{length_text(g.lam * g.z / (dx_t * big_x))} (short distance)"
             )
             route = _plan_convolution_route(
                 g, box, src, setup, dtype, reasons, method, "transfer_function"
