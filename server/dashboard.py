@@ -1,0 +1,987 @@
+"""One session's dashboard: its setup, its last good result and its display settings.
+
+Every edit goes through :meth:`Dashboard.set_value` (or one of the element
+operations): the change is applied to a copy of the setup and checked there,
+then either committed (and a computation requested) or refused with a plain
+message, leaving everything as it was. Computations run on a worker thread;
+only the newest request is applied, and a failed one leaves the last good
+result on screen. Display settings (scale, colour map, the cut point) never
+start a computation.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+import html
+import io
+import json
+import logging
+import math
+import re
+import threading
+from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
+from pathlib import Path
+from typing import Any
+
+import holoviews as hv
+import numpy as np
+import pandas as pd
+import panel as pn
+import param
+from panel.io.state import set_curdoc
+
+import compute
+from compute import engine, snapshot
+from compute.errors import SetupError
+from compute.model import ELEMENT_TYPES, Element, Setup
+from compute.pngdata import PngDataError, decode_png_data_url
+from server import controls, urlstate, views
+from server.controls import SHAPE_LABELS, ElementEditor, SetupControls, to_display
+
+__all__ = ["MAX_UPLOAD_BYTES", "Dashboard"]
+
+log = logging.getLogger("fringebench.dashboard")
+
+#: Largest snapshot file accepted by the import button.
+MAX_UPLOAD_BYTES = snapshot.MAX_SNAPSHOT_BYTES
+SAFETY_TEXT = (
+    "Laser safety: a computed irradiance is no safety assessment. Follow the "
+    "applicable laser-safety standard and your local laser safety officer."
+)
+_ASSETS = Path(__file__).resolve().parent / "assets"
+_PATH = re.compile(r"^(source|screen|numerics|aperture)(?:\.elements\[(\d+)\])?\.(\w+)$")
+
+# One pool for the process: two cores, and a session computes one setup at a time.
+_POOL = ThreadPoolExecutor(max_workers=2, thread_name_prefix="fringebench-compute")
+
+
+def _stylesheet() -> str:
+    path = _ASSETS / "fringebench.css"
+    return path.read_text(encoding="utf-8") if path.exists() else ""
+
+
+_CSS = _stylesheet()
+
+
+def _html(text: str, **kw: Any) -> pn.pane.HTML:
+    """An HTML pane styled with our stylesheet (panes render in their own shadow root)."""
+    return pn.pane.HTML(text, stylesheets=[_CSS], **kw)
+
+
+def clone(setup: Setup) -> Setup:
+    """An independent copy of ``setup`` (through the snapshot format)."""
+    return snapshot.from_dict(snapshot.to_dict(setup))
+
+
+def _aperture_key(setup: Setup) -> str:
+    """What the aperture preview depends on (the window matters for unbounded elements)."""
+    doc = snapshot.to_dict(setup)
+    return json.dumps([doc["aperture"], setup.screen.width, setup.screen.height], sort_keys=True)
+
+
+def _work(setup: Setup, shown_aperture: str | None) -> tuple[Any, Any, str]:
+    """The worker's job: the screen result, and the aperture preview when it changed."""
+    key = _aperture_key(setup)
+    preview = engine.aperture_preview(setup, n=256) if key != shown_aperture else None
+    return engine.compute(setup), preview, key
+
+
+def failure_message(exc: BaseException) -> str:
+    """A plain sentence for a failed computation (no traceback for the user)."""
+    if isinstance(exc, SetupError):
+        return str(exc)
+    if isinstance(exc, snapshot.SnapshotError):
+        return "; ".join(f"{p}: {m}" if p else m for p, m in exc.errors)
+    if isinstance(exc, MemoryError):
+        return "the computation ran out of memory; lower the screen pixels or the grid"
+    return f"internal error while computing ({type(exc).__name__}: {exc})"
+
+
+class Dashboard(pn.viewable.Viewer):
+    """The dashboard of one session.
+
+    Parameters
+    ----------
+    setup
+        The setup to start on (copied); the model defaults when None.
+    presets
+        ``{title: path}`` of the presets that the picker offers.
+    threaded
+        Compute on the worker pool (True) or in the calling thread (False).
+    messages
+        Notices to show once the page has loaded (e.g. a bad link).
+    """
+
+    setup = param.ClassSelector(class_=Setup, doc="The committed setup of this session.")
+    result = param.Parameter(default=None, doc="The last good result (compute.engine.Result).")
+    scale = param.Selector(default="linear", objects=["linear", "log"], doc="Irradiance scale.")
+    cmap = param.Selector(default="inferno", objects=list(views.COLOUR_MAPS), doc="Colour map.")
+    cut_x = param.Number(default=0.0, doc="x of the vertical cut, m.")
+    cut_y = param.Number(default=0.0, doc="y of the horizontal cut, m.")
+    busy = param.Boolean(default=False, doc="A computation is running.")
+    computations = param.Integer(default=0, doc="Computations started in this session.")
+    results_applied = param.Integer(default=0, doc="Results put on screen in this session.")
+    last_error = param.String(default="", doc="The last failure, in plain words.")
+    selected = param.Integer(default=0, doc="Index of the element shown in the editor.")
+
+    def __init__(
+        self,
+        setup: Setup | None = None,
+        *,
+        presets: dict[str, Path] | None = None,
+        threaded: bool = True,
+        messages: list[str] | None = None,
+        **params: Any,
+    ):
+        initial = clone(setup) if setup is not None else Setup()
+        super().__init__(setup=initial, **params)
+        self._threaded = threaded
+        self._presets = dict(presets or {})
+        self._doc = pn.state.curdoc
+        in_session = self._doc is not None and self._doc.session_context is not None
+        self._location = pn.state.location if in_session else None
+        self._notifications = pn.state.notifications if in_session else None
+        self._lock = threading.Lock()
+        self._wanted: Setup | None = None
+        self._running = False
+        self._idle = threading.Event()
+        self._idle.set()
+        self._result_setup: Setup | None = None
+        self._preview = None
+        self._shown_aperture: str | None = None
+        self._closed = views.ClosedForm(None, "")
+        self._map_data = None
+        self._pending_messages = list(messages or [])
+        self.messages: list[tuple[str, str]] = []  # (level, text), newest last
+        self._plots_built = False
+        self._applying_view = False
+        self._url_warned = False
+        self._build_widgets()
+        self._apply_view(initial.view)
+        self._structure: tuple = ()
+        self._refresh_controls()
+        self.param.watch(self._display_changed, ["scale", "cmap"])
+        self._request_compute()
+        if self._doc is not None and self._doc.session_context is not None:
+            pn.state.onload(self._on_page_loaded)
+
+    # ------------------------------------------------------------------ messages
+
+    def notify(self, level: str, text: str) -> None:
+        """Show a notification (``error``, ``warning``, ``info``, ``success``)."""
+        self.messages.append((level, text))
+        area = self._notifications
+        if area is not None:
+            duration = 10000 if level == "error" else 5000
+            getattr(area, level)(html.escape(text), duration=duration)
+
+    def _on_page_loaded(self) -> None:
+        self._mirror_url()  # the browser's own address arrives on load; set ours after it
+        self._show_pending_messages()
+
+    def _show_pending_messages(self) -> None:
+        for text in self._pending_messages:
+            self.notify("error", text)
+        self._pending_messages = []
+
+    # ------------------------------------------------------------------- editing
+
+    def _unit_of(self, path: str) -> str:
+        c = self._controls_by_path.get(path)
+        return c.unit if c is not None else ""
+
+    def _range_message(self, path: str, p: param.Number, value: float) -> str:
+        unit = self._unit_of(path)
+        lo, hi = p.bounds
+        show = (lambda v: to_display(v, unit)) if unit else (lambda v: v)
+        si_unit = "" if unit else (p.metadata or {}).get("unit", "")
+        u = unit or si_unit
+        low = "above" if not p.inclusive_bounds[0] else "at least"
+        return (
+            f"{path}: {show(value):.6g} {u} is outside the allowed range "
+            f"({low} {show(lo):.6g} {u}, at most {show(hi):.6g} {u})"
+        ).replace("  ", " ")
+
+    def _resolve(self, setup: Setup, path: str) -> tuple[param.Parameterized, str]:
+        m = _PATH.match(path)
+        if m is None:
+            raise ValueError(f"{path}: no such setting")
+        section, index, name = m.groups()
+        obj = getattr(setup, section)
+        if index is not None:
+            els = setup.aperture.elements
+            if int(index) >= len(els):
+                raise ValueError(f"{path}: there is no element {int(index) + 1}")
+            obj = els[int(index)]
+        if name not in obj.param or name == "name":
+            raise ValueError(f"{path}: no such setting")
+        return obj, name
+
+    def _convert(self, path: str, name: str, value: Any) -> Any:
+        """Turn editor payloads (vertex text, PNG bytes) into model values."""
+        if name == "vertices" and isinstance(value, str):
+            try:
+                return controls.parse_vertices(value)
+            except ValueError as exc:
+                raise ValueError(f"{path}: {exc}") from None
+        if name == "data" and isinstance(value, (bytes, bytearray)):
+            url = "data:image/png;base64," + base64.b64encode(bytes(value)).decode("ascii")
+            try:
+                decode_png_data_url(url)
+            except PngDataError as exc:
+                raise ValueError(f"{path}: {exc}") from None
+            return url
+        return value
+
+    def set_value(self, path: str, value: Any) -> bool:
+        """Set one setting (SI units) if the setup stays valid; else say why and keep all.
+
+        Returns True when the change was committed.
+        """
+        try:
+            candidate = clone(self.setup)
+            obj, name = self._resolve(candidate, path)
+            value = self._convert(path, name, value)
+            p = obj.param[name]
+            if (
+                isinstance(p, param.Number)
+                and isinstance(value, (int, float))
+                and not isinstance(value, bool)
+            ):
+                if not math.isfinite(value):
+                    raise ValueError(f"{path}: expected a finite number")
+                lo, hi = p.bounds or (None, None)
+                low_ok = lo is None or (value >= lo if p.inclusive_bounds[0] else value > lo)
+                high_ok = hi is None or (value <= hi if p.inclusive_bounds[1] else value < hi)
+                if not (low_ok and high_ok):
+                    raise ValueError(self._range_message(path, p, value))
+            try:
+                setattr(obj, name, value)
+            except ValueError as exc:
+                raise ValueError(f"{path}: {exc}") from None
+            problems = candidate.check()
+            if problems:
+                raise ValueError("; ".join(f"{pp}: {mm}" for pp, mm in problems))
+        except ValueError as exc:
+            self._reject(str(exc))
+            return False
+        self._commit(candidate)
+        return True
+
+    def _reject(self, text: str) -> None:
+        self.notify("error", text)
+        self._refresh_controls()
+
+    def _edit(self, change: Callable[[Setup], None], *, select: int | None = None) -> bool:
+        """Apply ``change`` to a copy of the setup; commit it when the copy checks out."""
+        candidate = clone(self.setup)
+        try:
+            change(candidate)
+        except (ValueError, IndexError) as exc:
+            self._reject(str(exc))
+            return False
+        problems = candidate.check()
+        if problems:
+            self._reject("; ".join(f"{p}: {m}" for p, m in problems))
+            return False
+        if select is not None:
+            self.selected = max(0, min(select, len(candidate.aperture.elements) - 1))
+        self._commit(candidate)
+        return True
+
+    def add_element(self, shape: str) -> bool:
+        """Append a new element of ``shape`` (model defaults) and select it."""
+        if shape not in ELEMENT_TYPES:
+            self._reject(f"unknown shape {shape!r}")
+            return False
+
+        def change(s: Setup) -> None:
+            s.aperture.elements = [*s.aperture.elements, ELEMENT_TYPES[shape]()]
+
+        return self._edit(change, select=len(self.setup.aperture.elements))
+
+    def duplicate_element(self, index: int) -> bool:
+        """Insert a copy of element ``index`` right after it."""
+
+        def change(s: Setup) -> None:
+            els = list(s.aperture.elements)
+            copy_ = clone_element(els[index])
+            s.aperture.elements = [*els[: index + 1], copy_, *els[index + 1 :]]
+
+        return self._edit(change, select=index + 1)
+
+    def remove_element(self, index: int) -> bool:
+        """Delete element ``index``."""
+
+        def change(s: Setup) -> None:
+            els = list(s.aperture.elements)
+            if not 0 <= index < len(els):
+                raise IndexError(f"there is no element {index + 1}")
+            del els[index]
+            s.aperture.elements = els
+
+        return self._edit(change, select=max(0, index - 1))
+
+    def move_element(self, index: int, step: int) -> bool:
+        """Move element ``index`` by ``step`` places in the painting order."""
+        n = len(self.setup.aperture.elements)
+        target = index + step
+        if not (0 <= index < n and 0 <= target < n):
+            return False
+
+        def change(s: Setup) -> None:
+            els = list(s.aperture.elements)
+            els[index], els[target] = els[target], els[index]
+            s.aperture.elements = els
+
+        return self._edit(change, select=target)
+
+    def load(self, setup: Setup, *, origin: str = "setup") -> None:
+        """Replace the whole setup (a preset, an import, a link); the view follows it."""
+        self.selected = 0
+        self._commit(clone(setup), view=setup.view)
+        self.notify("info", f"Loaded {origin}.")
+
+    def _commit(self, candidate: Setup, *, view: dict | None = None) -> None:
+        self.setup = candidate
+        if view is not None:
+            self._apply_view(view)
+        self._refresh_controls()
+        self._mirror_url()
+        self._request_compute()
+
+    # ----------------------------------------------------------- import, export
+
+    def export_snapshot(self) -> str:
+        """The current setup and view as version-1 snapshot JSON text."""
+        s = clone(self.setup)
+        meta = dict(s.meta)
+        meta["created"] = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+        meta["app_version"] = compute.__version__
+        s.meta = meta
+        s.view = self.view_state()
+        return snapshot.dumps(s)
+
+    def import_snapshot(self, data: bytes | str, *, name: str = "the uploaded file") -> bool:
+        """Load a snapshot; on any problem say what is wrong and change nothing."""
+        size = len(data)
+        if size > MAX_UPLOAD_BYTES:
+            self.notify(
+                "error",
+                f"{name} is {size / 2**20:.1f} MB; a snapshot is at most "
+                f"{MAX_UPLOAD_BYTES // 2**20} MB",
+            )
+            return False
+        try:
+            setup = snapshot.loads(data, source=name)
+        except snapshot.SnapshotError as exc:
+            listed = [f"{p}: {m}" if p else m for p, m in exc.errors[:8]]
+            more = f" (and {len(exc.errors) - 8} more)" if len(exc.errors) > 8 else ""
+            self.notify("error", f"{name} was not loaded: " + "; ".join(listed) + more)
+            return False
+        self.load(setup, origin=name)
+        return True
+
+    # -------------------------------------------------------------- view state
+
+    def view_state(self) -> dict[str, Any]:
+        """The display settings as the snapshot's ``view`` section."""
+        return {"scale": self.scale, "cmap": self.cmap, "cut": [self.cut_x, self.cut_y]}
+
+    def _apply_view(self, view: dict) -> None:
+        self._applying_view = True
+        try:
+            if view.get("scale") in self.param["scale"].objects:
+                self.scale = view["scale"]
+            if view.get("cmap") in self.param["cmap"].objects:
+                self.cmap = view["cmap"]
+            cut = view.get("cut")
+            if (
+                isinstance(cut, list)
+                and len(cut) == 2
+                and all(isinstance(c, (int, float)) and math.isfinite(c) for c in cut)
+            ):
+                self.cut_x, self.cut_y = float(cut[0]), float(cut[1])
+            else:
+                self.cut_x, self.cut_y = self.setup.screen.x, self.setup.screen.y
+        finally:
+            self._applying_view = False
+
+    def _mirror_url(self) -> None:
+        if self._location is None:
+            return
+        s = clone(self.setup)
+        s.view = self.view_state()
+        value = urlstate.encode_setup(s)
+        if len(value) > urlstate.MAX_QUERY_CHARS:
+            self._location.update_query(s="")
+            if not self._url_warned:
+                self._url_warned = True
+                self.notify(
+                    "warning",
+                    "This setup is too large for the page address; use Export to share it.",
+                )
+            return
+        self._location.update_query(s=value)
+
+    def _display_changed(self, event: param.parameterized.Event) -> None:
+        # Display only: redraw from the result at hand, compute nothing.
+        if self._plots_built:
+            if event.name == "scale":
+                self._build_plots()
+            else:
+                self._send_map()
+            self._update_state()
+        if not self._applying_view:
+            self._mirror_url()
+
+    def set_cut(self, x: float, y: float) -> None:
+        """Move the cross-sections through (x, y), m (a click on the map)."""
+        self.cut_x, self.cut_y = float(x), float(y)
+        if self._plots_built:
+            self._send_cuts()
+            self._update_state()
+        self._mirror_url()
+
+    # ----------------------------------------------------------------- compute
+
+    def _request_compute(self) -> None:
+        with self._lock:
+            self._wanted = self.setup
+            self._idle.clear()
+            if self._running:
+                return  # the running job picks up the newest setup when it ends
+            self._running = True
+        self.busy = True
+        self._start(self.setup)
+
+    def _start(self, setup: Setup) -> None:
+        self.computations += 1
+        if not self._threaded:
+            fut: Future = Future()
+            try:
+                fut.set_result(_work(setup, self._shown_aperture))
+            except Exception as exc:
+                fut.set_exception(exc)
+            self._finish(setup, fut)
+            return
+        fut = _POOL.submit(_work, setup, self._shown_aperture)
+        fut.add_done_callback(lambda f: self._schedule(lambda: self._finish(setup, f)))
+
+    def _schedule(self, callback: Callable[[], None]) -> None:
+        """Run ``callback`` where the session's models may be changed."""
+        doc = self._doc
+        if doc is not None and doc.session_context is not None:
+
+            def in_session() -> None:
+                with set_curdoc(doc):
+                    callback()
+
+            try:
+                doc.add_next_tick_callback(in_session)
+            except Exception:  # the session has closed; nothing to show
+                log.debug("session closed before a result arrived")
+            return
+        callback()
+
+    def _finish(self, setup: Setup, fut: Future) -> None:
+        with self._lock:
+            newer = self._wanted is not setup
+            if not newer:
+                self._running = False
+        if newer:
+            self._start(self._wanted)  # coalesce: only the newest request is applied
+            return
+        exc = fut.exception()
+        if exc is not None:
+            if not isinstance(exc, (SetupError, snapshot.SnapshotError, MemoryError)):
+                log.error("computation failed", exc_info=exc)
+            self.last_error = failure_message(exc)
+            self.notify(
+                "error", f"Computation failed, the last good result stays: {self.last_error}"
+            )
+        else:
+            result, preview, aperture_key = fut.result()
+            self.last_error = ""
+            self._result_setup = setup
+            self._preview = preview
+            self._shown_aperture = aperture_key
+            self._closed = views.closed_form(setup, result.plan.method, result.plan.variant)
+            if not self._cut_inside(result):
+                self.cut_x, self.cut_y = (
+                    float(np.mean(result.x[[0, -1]])),
+                    float(np.mean(result.y[[0, -1]])),
+                )
+            self.result = result
+            self.results_applied += 1
+            self._show_result()
+        self.busy = False
+        self._set_busy_view(False)
+        self._idle.set()
+
+    def _cut_inside(self, result: Any) -> bool:
+        return bool(
+            result.x[0] <= self.cut_x <= result.x[-1] and result.y[0] <= self.cut_y <= result.y[-1]
+        )
+
+    def wait(self, timeout: float = 120.0) -> bool:
+        """Block until no computation is pending (for tests and scripts)."""
+        return self._idle.wait(timeout)
+
+    # ------------------------------------------------------------------ widgets
+
+    def _build_widgets(self) -> None:
+        self.controls = SetupControls(self.set_value)
+        self._controls_by_path: dict[str, controls.QuantityControl] = {}
+        for c in [*self.controls.source.values(), *self.controls.screen.values()]:
+            self._controls_by_path[c.path] = c
+        self._controls_by_path[self.controls.grid.path] = self.controls.grid
+
+        self.preset_picker = pn.widgets.Select(
+            label="Preset",
+            options={"(choose a preset)": "", **{t: t for t in self._presets}},
+            value="",
+            css_classes=["fb-preset"],
+            sizing_mode="stretch_width",
+        )
+        self.preset_picker.param.watch(self._preset_chosen, "value")
+        self.export_button = pn.widgets.FileDownload(
+            callback=lambda: io.StringIO(self.export_snapshot()),
+            filename="fringebench-setup.json",
+            label="Export snapshot",
+            color="primary",
+            css_classes=["fb-export"],
+            sizing_mode="stretch_width",
+        )
+        self.import_input = pn.widgets.FileInput(
+            accept=".json,application/json",
+            css_classes=["fb-import"],
+            sizing_mode="stretch_width",
+        )
+        self.import_input.param.watch(self._file_imported, "value")
+
+        self.scale_switch = pn.widgets.RadioButtonGroup.from_param(
+            self.param.scale,
+            css_classes=["fb-scale"],
+            color="primary",
+            variant="outline",
+        )
+        self.cmap_select = pn.widgets.Select.from_param(
+            self.param.cmap, label="Colour map", css_classes=["fb-cmap"], width=140
+        )
+
+        # Element table and editor.
+        self.element_table = pn.widgets.Tabulator(
+            self._elements_frame(),
+            disabled=True,
+            selectable=1,
+            show_index=False,
+            layout="fit_data_stretch",
+            height=150,
+            sizing_mode="stretch_width",
+            css_classes=["fb-elements"],
+        )
+        self.element_table.param.watch(self._table_selected, "selection")
+        self.new_shape = pn.widgets.Select(
+            options={v: k for k, v in SHAPE_LABELS.items()},
+            value="rect",
+            css_classes=["fb-new-shape"],
+            width=150,
+        )
+
+        def button(label: str, css: str, action: Callable[[], Any]) -> pn.widgets.Button:
+            b = pn.widgets.Button(label=label, css_classes=[css], variant="outline", width=70)
+            b.on_click(lambda _e: action())
+            return b
+
+        self.element_buttons = pn.Row(
+            self.new_shape,
+            button("Add", "fb-add-element", lambda: self.add_element(self.new_shape.value)),
+            button("Copy", "fb-copy-element", lambda: self.duplicate_element(self.selected)),
+            sizing_mode="stretch_width",
+        )
+        self.order_buttons = pn.Row(
+            button("Up", "fb-up-element", lambda: self.move_element(self.selected, -1)),
+            button("Down", "fb-down-element", lambda: self.move_element(self.selected, +1)),
+            button("Delete", "fb-delete-element", lambda: self.remove_element(self.selected)),
+            sizing_mode="stretch_width",
+        )
+        self.element_editor = pn.Column(sizing_mode="stretch_width")
+
+        # Views.
+        self.map_pane = pn.pane.HoloViews(None, sizing_mode="stretch_width", css_classes=["fb-map"])
+        self.cut_x_pane = pn.pane.HoloViews(
+            None, sizing_mode="stretch_width", css_classes=["fb-cut-x"]
+        )
+        self.cut_y_pane = pn.pane.HoloViews(
+            None, sizing_mode="stretch_width", css_classes=["fb-cut-y"]
+        )
+        self.aperture_pane = pn.pane.HoloViews(
+            None, sizing_mode="stretch_width", css_classes=["fb-aperture"]
+        )
+        self.phase_pane = pn.pane.HoloViews(
+            None, sizing_mode="stretch_width", css_classes=["fb-phase"]
+        )
+        self.numbers_pane = _html("", sizing_mode="stretch_width", css_classes=["fb-numbers-pane"])
+        self.validity_pane = _html(
+            "", sizing_mode="stretch_width", css_classes=["fb-validity-pane"]
+        )
+        self.spinner = pn.indicators.LoadingSpinner(
+            value=False, size=22, css_classes=["fb-busy"], color="light"
+        )
+        self.status = _html("", css_classes=["fb-status"], sizing_mode="stretch_width")
+        self.state_pane = _html("", css_classes=["fb-state"], height=0, margin=0)
+        self.overlay_note = _html("", css_classes=["fb-overlay-note"], sizing_mode="stretch_width")
+
+    def _elements_frame(self) -> pd.DataFrame:
+        rows = []
+        for i, el in enumerate(self.setup.aperture.elements):
+            rows.append(
+                {
+                    "#": i + 1,
+                    "shape": el.shape,
+                    "centre (µm)": f"{to_display(el.x, 'µm'):.4g}, {to_display(el.y, 'µm'):.4g}",
+                    "size": controls.element_summary(el),
+                    "t": round(el.transmission, 4),
+                    "phase": round(el.phase, 4),
+                }
+            )
+        cols = ["#", "shape", "centre (µm)", "size", "t", "phase"]
+        return pd.DataFrame(rows, columns=cols)
+
+    def _refresh_controls(self) -> None:
+        """Show the committed setup in every control and the element table."""
+        self.controls.refresh(self.setup)
+        els = self.setup.aperture.elements
+        if els and self.selected >= len(els):
+            self.selected = len(els) - 1
+        frame = self._elements_frame()
+        if not frame.equals(self.element_table.value):
+            self.element_table.value = frame
+        self._muted_selection = True
+        try:
+            self.element_table.selection = [self.selected] if els else []
+        finally:
+            self._muted_selection = False
+        structure = (self.selected, tuple(e.shape for e in els))
+        if structure != self._structure:
+            self._structure = structure
+            self._rebuild_editor()
+        else:
+            for c in self._editor_controls:
+                obj, name = self._resolve(self.setup, c.path)
+                c.show(getattr(obj, name))
+
+    def _rebuild_editor(self) -> None:
+        els = self.setup.aperture.elements
+        for path in [p for p in self._controls_by_path if p.startswith("aperture.elements")]:
+            del self._controls_by_path[path]
+        self._editor_controls: list[controls.QuantityControl] = []
+        if not els:
+            self.element_editor.objects = [
+                pn.pane.Markdown("No elements: add one to shape the aperture.")
+            ]
+            return
+        editor = ElementEditor(self.selected, els[self.selected], self.set_value)
+        self._editor_controls = editor.controls
+        for c in editor.controls:
+            self._controls_by_path[c.path] = c
+        self.element_editor.objects = [editor.panel]
+
+    def _table_selected(self, event: param.parameterized.Event) -> None:
+        if getattr(self, "_muted_selection", False) or not event.new:
+            return
+        self.selected = int(event.new[0])
+        self._refresh_controls()
+
+    def _preset_chosen(self, event: param.parameterized.Event) -> None:
+        title = event.new
+        path = self._presets.get(title) if title else None
+        if path is None:  # only titles the server offered are accepted
+            return
+        try:
+            setup = snapshot.load(path)
+        except snapshot.SnapshotError as exc:
+            self.notify("error", f"preset {title} could not be read: {exc}")
+            return
+        self.load(setup, origin=f"preset “{title}”")
+
+    def _file_imported(self, event: param.parameterized.Event) -> None:
+        if event.new is None:
+            return
+        name = self.import_input.filename or "the uploaded file"
+        self.import_snapshot(event.new, name=name)
+
+    # ------------------------------------------------------------------- views
+
+    def _build_plots(self) -> None:
+        """(Re)create the HoloViews objects; needed once, and when the scale changes."""
+        self._map_pipe = hv.streams.Pipe(data=self._map_data)
+        self._cross_pipe = hv.streams.Pipe(data=(self.cut_x, self.cut_y))
+        self._cut_pipes = {a: hv.streams.Pipe(data=self._cut_data(a)) for a in ("x", "y")}
+        scale = self.scale
+
+        def image(data):
+            x, y, z = data
+            return views.map_view(x, y, z, scale=scale, cmap=self.cmap)
+
+        def cross(data):
+            return views.crosshair(*data)
+
+        img = hv.DynamicMap(image, streams=[self._map_pipe])
+        cross_map = hv.DynamicMap(cross, streams=[self._cross_pipe])
+        self._tap = hv.streams.Tap(source=img, x=None, y=None)
+        self._tap.add_subscriber(self._tapped)
+        self.map_pane.object = img * cross_map
+
+        def cut(data):
+            if data is None:
+                return hv.Curve([], kdims=["x"], vdims=["irradiance"])
+            return views.cut_view(**data, scale=scale)
+
+        self.cut_x_pane.object = hv.DynamicMap(cut, streams=[self._cut_pipes["x"]])
+        self.cut_y_pane.object = hv.DynamicMap(cut, streams=[self._cut_pipes["y"]])
+        self._plots_built = True
+        self._send_cuts()
+
+    def _tapped(self, x: float | None = None, y: float | None = None) -> None:
+        if x is None or y is None:
+            return
+        self.set_cut(x * 1e-3, y * 1e-3)
+
+    def _show_result(self) -> None:
+        r = self.result
+        self._map_data = (r.x, r.y, np.asarray(r.intensity, dtype=np.float32))
+        if not self._plots_built:
+            self._build_plots()
+        self._send_map()
+        self._send_cuts()
+        if self._preview is not None:
+            self._send_aperture(self._preview)
+            self._preview = None
+        meta = dict(r.meta())
+        meta["cached"] = bool(getattr(r, "cached", False))
+        meta.setdefault("reasons", list(getattr(r.plan, "reasons", [])))
+        meta["elapsed_s"] = float(getattr(r, "elapsed_s", meta.get("elapsed_s", 0.0)))
+        numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
+        self.numbers_pane.object = views.numbers_card(numbers, meta, cut_label=self._closed.label)
+        self.validity_pane.object = views.validity_card([v.to_dict() for v in r.validity])
+        self._update_state()
+
+    def _send_aperture(self, preview: tuple) -> None:
+        """Show a new aperture preview, updating the plots in place once they exist."""
+        if getattr(self, "_aperture_pipe", None) is None:
+            self._aperture_pipe = hv.streams.Pipe(data=preview)
+            self.aperture_pane.object = hv.DynamicMap(
+                lambda data: views.aperture_view(*data)[0], streams=[self._aperture_pipe]
+            )
+            self.phase_pane.object = hv.DynamicMap(
+                lambda data: views.aperture_view(*data)[1], streams=[self._aperture_pipe]
+            )
+        else:
+            self._aperture_pipe.send(preview)
+
+    def _send_map(self) -> None:
+        if self._map_data is not None:
+            self._map_pipe.send(self._map_data)
+
+    def _cut_data(self, axis: str) -> dict | None:
+        r = self.result
+        if r is None:
+            return None
+        j = views.nearest(r.y, self.cut_y)
+        i = views.nearest(r.x, self.cut_x)
+        fn = self._closed.fn
+        ref = None
+        if axis == "x":
+            coords, values, at, marker = r.x, r.intensity[j, :], float(r.y[j]), float(r.x[i])
+            if fn is not None:
+                ref = self._reference(fn, r.x, np.full_like(r.x, r.y[j]))
+        else:
+            coords, values, at, marker = r.y, r.intensity[:, i], float(r.x[i]), float(r.y[j])
+            if fn is not None:
+                ref = self._reference(fn, np.full_like(r.y, r.x[i]), r.y)
+        return {
+            "coords": coords,
+            "values": values,
+            "axis": axis,
+            "at": at,
+            "marker": marker,
+            "reference": ref,
+            "reference_label": self._closed.label.removeprefix("closed form: "),
+        }
+
+    @staticmethod
+    def _reference(fn, x: np.ndarray, y: np.ndarray) -> np.ndarray | None:
+        try:
+            out = np.asarray(fn(x, y), dtype=np.float64)
+        except (ValueError, FloatingPointError):
+            return None
+        return out if np.all(np.isfinite(out)) else None
+
+    def _send_cuts(self) -> None:
+        if self.result is None or not self._plots_built:
+            return
+        for axis in ("x", "y"):
+            data = self._cut_data(axis)
+            self._cut_pipes[axis].send(data)
+        self._cross_pipe.send((self.cut_x, self.cut_y))
+        note = self._closed.label or "no closed form for this aperture"
+        self.overlay_note.object = f'<span class="fb-note">{html.escape(note)}</span>'
+
+    def _set_busy_view(self, busy: bool) -> None:
+        self.spinner.value = busy
+        self._update_state()
+
+    @param.depends("busy", watch=True)
+    def _busy_changed(self) -> None:
+        if self.busy:
+            self._set_busy_view(True)
+
+    def _update_state(self) -> None:
+        """The machine-readable state of the page, for tests and scripts."""
+        r = self.result
+        attrs: dict[str, Any] = {
+            "busy": int(self.busy),
+            "computations": self.computations,
+            "results": self.results_applied,
+            "scale": self.scale,
+            "cmap": self.cmap,
+            "cut-x": repr(self.cut_x),
+            "cut-y": repr(self.cut_y),
+            "error": self.last_error,
+            "setup-key": snapshot.physics_hash(self.setup),
+            "elements": len(self.setup.aperture.elements),
+        }
+        if r is not None and self._map_data is not None:
+            z = self._map_data[2]
+            j = views.nearest(r.y, self.cut_y)
+            i = views.nearest(r.x, self.cut_x)
+            attrs.update(
+                {
+                    "key": r.key,
+                    "method": r.plan.method,
+                    "peak": repr(float(z.max())),
+                    "sum": repr(float(z.sum(dtype=np.float64))),
+                    "shape": f"{z.shape[0]}x{z.shape[1]}",
+                    "cut-row": j,
+                    "cut-col": i,
+                    "cut-row-sum": repr(float(r.intensity[j, :].sum())),
+                    "cut-col-sum": repr(float(r.intensity[:, i].sum())),
+                    "overlay": self._closed.label,
+                    "elapsed-ms": f"{r.elapsed_s * 1e3:.1f}",
+                    "cached": int(bool(getattr(r, "cached", False))),
+                }
+            )
+        body = " ".join(f'data-{k}="{html.escape(str(v))}"' for k, v in attrs.items())
+        self.state_pane.object = f'<div id="fb-state" class="fb-state-data" {body}></div>'
+        if self.busy:
+            text = "computing…"
+        elif self.last_error:
+            text = f"last computation failed: {self.last_error}"
+        elif r is not None:
+            text = (
+                f"{r.plan.method} · {r.intensity.shape[1]}×{r.intensity.shape[0]} px · "
+                f"{r.elapsed_s * 1e3:.0f} ms" + (" · cached" if getattr(r, "cached", False) else "")
+            )
+        else:
+            text = ""
+        cls = "fb-status-error" if self.last_error and not self.busy else ""
+        self.status.object = f'<span class="{cls}">{html.escape(text)}</span>'
+
+    # ------------------------------------------------------------------ layout
+
+    def _card(self, title: str, *objects: Any, collapsed: bool = False, css: str = "") -> pn.Card:
+        return pn.Card(
+            *objects,
+            title=title,
+            collapsed=collapsed,
+            sizing_mode="stretch_width",
+            css_classes=["fb-panel", css] if css else ["fb-panel"],
+        )
+
+    def __panel__(self) -> pn.viewable.Viewable:
+        if getattr(self, "_layout", None) is not None:
+            return self._layout
+        header = pn.Row(
+            _html(
+                '<div class="fb-brand"><span class="fb-name">fringebench</span>'
+                '<span class="fb-tagline">scalar diffraction on the optical bench</span></div>',
+                margin=(4, 10),
+            ),
+            _html(
+                f'<div class="fb-safety" role="note">⚠ {html.escape(SAFETY_TEXT)}</div>',
+                sizing_mode="stretch_width",
+                css_classes=["fb-safety-pane"],
+                margin=(4, 10),
+            ),
+            sizing_mode="stretch_width",
+            css_classes=["fb-header"],
+        )
+        snapshot_card = self._card(
+            "Preset and snapshot",
+            self.preset_picker,
+            self.export_button,
+            pn.pane.Markdown("Import a snapshot (.json):", margin=(0, 5)),
+            self.import_input,
+        )
+        aperture_card = self._card(
+            "Aperture",
+            self.controls.background.widget,
+            self.element_table,
+            self.element_buttons,
+            self.order_buttons,
+            self.element_editor,
+        )
+        sidebar = pn.Column(
+            snapshot_card,
+            self._card("Source", self.controls.source_panel()),
+            aperture_card,
+            self._card("Screen", self.controls.screen_panel()),
+            self._card("Numerics", self.controls.numerics_panel(), collapsed=True),
+            width=380,
+            css_classes=["fb-sidebar"],
+        )
+        toolbar = pn.Row(
+            self.scale_switch,
+            self.cmap_select,
+            self.spinner,
+            self.status,
+            sizing_mode="stretch_width",
+            css_classes=["fb-toolbar"],
+        )
+        main = pn.Column(
+            toolbar,
+            pn.Row(
+                self.map_pane, pn.Column(self.numbers_pane, width=330), sizing_mode="stretch_width"
+            ),
+            self.overlay_note,
+            pn.Row(self.cut_x_pane, self.cut_y_pane, sizing_mode="stretch_width"),
+            pn.Row(
+                self.aperture_pane,
+                self.phase_pane,
+                pn.Column(self.validity_pane, width=460),
+                sizing_mode="stretch_width",
+            ),
+            self.state_pane,
+            sizing_mode="stretch_width",
+            css_classes=["fb-main"],
+        )
+        self._layout = pn.Column(
+            header,
+            pn.Row(sidebar, main, sizing_mode="stretch_width"),
+            sizing_mode="stretch_width",
+            css_classes=["fb-root"],
+        )
+        return self._layout
+
+
+def clone_element(el: Element) -> Element:
+    """An independent copy of one element."""
+    cls = type(el)
+    values = {n: getattr(el, n) for n in el.param if n != "name"}
+    if "vertices" in values:
+        values["vertices"] = [list(v) for v in values["vertices"]]
+    return cls(**values)
