@@ -13,11 +13,12 @@ import math
 import threading
 import time
 from collections import OrderedDict
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from . import __version__, apertures, planning, propagators, sources
+from . import fft as _fft
 from .errors import SetupError
 from .grids import centred_axis
 from .model import Setup
@@ -47,6 +48,9 @@ class Result:
     elapsed_s: float
     key: str
     cached: bool = False
+    # Arrays beyond the monochromatic screen (camera counts, colour image, ...),
+    # each a numpy array keyed by the name it has in a rendered NPZ.
+    extras: dict = field(default_factory=dict)
 
     @property
     def method(self) -> str:
@@ -58,7 +62,10 @@ class Result:
 
     @property
     def nbytes(self) -> int:
-        return int(self.x.nbytes + self.y.nbytes + self.intensity.nbytes + self.field.nbytes)
+        extra = sum(getattr(v, "nbytes", 0) for v in self.extras.values())
+        return int(
+            self.x.nbytes + self.y.nbytes + self.intensity.nbytes + self.field.nbytes + extra
+        )
 
     def meta(self) -> dict:
         """The JSON-able description stored beside a rendered result."""
@@ -152,53 +159,37 @@ def _taper(coord: np.ndarray, lo: float, hi: float, t_lo: float, t_hi: float) ->
     return w
 
 
-def edge_corrected(t: np.ndarray) -> np.ndarray:
-    """Apply the Euler–Maclaurin end correction of the midpoint rule to a transmittance.
+def _aperture_field(
+    setup: Setup, p: Plan, x: np.ndarray, y: np.ndarray
+) -> tuple[np.ndarray, float | None]:
+    """The field leaving the aperture plane on pixels (x, y), and the power it carries.
 
-    Outside the raster the transmittance is taken as zero: the grid must hold a
-    margin of at least one empty pixel around the lit region.
-
-    The propagation sums are midpoint rules over the pixels. Where the
-    transmittance jumps, the midpoint rule errs by (h²/24)∫ t′ g′ ds, which by parts
-    equals the sum with t replaced by t + (h²/24) t″. The discrete form is the
-    separable filter [1, 22, 1]/24: it leaves uniform regions and the total
-    transmission unchanged and removes the O(h²) error of sharp edges, so a smooth
-    beam is propagated exactly as before while hard apertures converge at a coarse
-    pitch.
-
-    References
-    ----------
-    P. J. Davis and P. Rabinowitz, *Methods of Numerical Integration*, 2nd ed.
-    (1984), §2.9 (Euler–Maclaurin summation formula for the midpoint rule).
-    """
-    out = t * (22.0 / 24.0)
-    out[:, 1:] += t[:, :-1] / 24.0
-    out[:, :-1] += t[:, 1:] / 24.0
-    res = out * (22.0 / 24.0)
-    res[1:, :] += out[:-1, :] / 24.0
-    res[:-1, :] += out[1:, :] / 24.0
-    return res
-
-
-def _aperture_field(setup: Setup, p: Plan, x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """The field leaving the aperture plane on pixels (x, y), in the plan's precision.
-
-    On a clear background this is the field through the complement of the
-    aperture (Babinet), to be subtracted from the unobstructed beam.
+    The transmittance is given as quadrature weights
+    (:func:`compute.apertures.quadrature_transmittance`), so the midpoint sums
+    of the propagators integrate hard edges to second order. On a clear
+    background this is the field through the complement of the aperture
+    (Babinet), to be subtracted from the unobstructed beam, and the power
+    through the aperture is unbounded (None).
     """
     dx, dy = p.dx, p.dy
-    t = apertures.transmittance(setup.aperture, x, y, pitch=(dx, dy))
+    t = apertures.quadrature_transmittance(setup.aperture, x, y, pitch=(dx, dy))
     if p.babinet:
         t = 1.0 - t
-    t = edge_corrected(t)
-    u = sources.incident_field(setup.source, x, y)
-    u *= t
+    inc = sources.incident_field(setup.source, x, y)
+    weight = None
     if p.taper is not None:
         x0, x1, y0, y1 = p.lit_box
         tx = _taper(x, x0, x1, p.taper[0], p.taper[1])
         ty = _taper(y, y0, y1, p.taper[2], p.taper[3])
-        u *= ty[:, None] * tx[None, :]
-    return u.astype(p.dtype, copy=False)
+        weight = ty[:, None] * tx[None, :]
+        inc *= weight
+    power_in = None
+    if not p.babinet:
+        # Area-weighted |t|², not |T|²: the power that really passes the aperture.
+        pt = apertures.power_transmittance(setup.aperture, x, y, pitch=(dx, dy))
+        power_in = float(np.sum((inc.real**2 + inc.imag**2) * pt) * dx * dy)
+    u = inc * t
+    return u.astype(p.dtype, copy=False), power_in
 
 
 def _transform_axes(p: Plan) -> tuple[np.ndarray, np.ndarray]:
@@ -264,19 +255,18 @@ def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple
     j0 = max(0, math.floor((box[2] - tx[2] - gy[0]) / p.dy) - 1)
     j1 = min(big_y, math.ceil((box[3] + tx[3] - gy[0]) / p.dy) + 2)
     sub_x, sub_y = gx[i0:i1], gy[j0:j1]
-    u = _aperture_field(setup, p, sub_x, sub_y)
-    power_in = float(np.sum(np.abs(u.astype(np.complex128)) ** 2) * p.dx * p.dy)
+    u, power_in = _aperture_field(setup, p, sub_x, sub_y)
     f = setup.screen.lens_focal_length
     if f is not None:
         ly, lx = propagators.lens_phase(sub_x, sub_y, setup.source.wavelength, f)
         u = u * ly.astype(u.dtype) * lx.astype(u.dtype)
-    full = np.zeros((big_y, big_x), dtype=p.dtype)
+    full = _fft.zeros((big_y, big_x), dtype=p.dtype)
     full[j0:j1, i0:i1] = u
     del u
     lam, z = setup.source.wavelength, setup.screen.distance
     kern = _kernel(p, lam, z)
     if p.output == "grid":
-        out = propagators.propagate_fft(full, kern)
+        out = propagators.propagate_fft(full, kern, overwrite=True)
         mx, my = p.step
         ci = round((xs[0] - gx[0]) / p.dx)
         cj = round((ys[0] - gy[0]) / p.dy)
@@ -285,9 +275,9 @@ def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple
             raise SetupError(
                 "screen.width", "the screen window does not fit the planned grid; widen the grid"
             )
-        field = np.array(field)
+        field = field.astype(np.complex128)
     else:
-        field = propagators.spectrum_to_points(full, kern, gx, gy, xs, ys)
+        field = propagators.spectrum_to_points(full, kern, gx, gy, xs, ys, overwrite=True)
     return field, power_in
 
 
@@ -299,8 +289,7 @@ def _propagate(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple:
     if p.method in ("angular_spectrum",) or p.variant == "transfer_function":
         return _convolution(setup, p, xs, ys)
     x, y = _transform_axes(p)
-    u = _aperture_field(setup, p, x, y)
-    power_in = float(np.sum(np.abs(u.astype(np.complex128)) ** 2) * p.dx * p.dy)
+    u, power_in = _aperture_field(setup, p, x, y)
     pitch = (p.dx, p.dy)
     if p.method == "rayleigh_sommerfeld":
         if f is not None:
@@ -354,6 +343,12 @@ def compute(
         hit = store.get(key)
         if hit is not None:
             return replace(hit, cached=True, elapsed_s=time.perf_counter() - t0)
+    from . import incoherent  # here: it calls back into compute() for each component
+
+    if incoherent.needed(setup):  # spectrum, source size or camera: a sum of coherent runs
+        return incoherent.compute(
+            setup, memory_limit=memory_limit, use_cache=use_cache, cache=store
+        )
     p = planning.plan(setup, memory_limit=memory_limit)
     xs, ys = planning.screen_axes(setup)
     field, power_in = _propagate(setup, p, xs, ys)
@@ -424,7 +419,7 @@ def field_at_points(setup: Setup, px, py, *, grid_pitch: float | None = None) ->
         babinet=g.babinet,
         dtype="complex128",
     )
-    u = _aperture_field(setup, p, x, y)
+    u, _ = _aperture_field(setup, p, x, y)
     f = setup.screen.lens_focal_length
     if f is not None:
         ly, lx = propagators.lens_phase(x, y, lam, f)

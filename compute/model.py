@@ -18,6 +18,7 @@ __all__ = [
     "ELEMENT_TYPES",
     "Annulus",
     "Aperture",
+    "Camera",
     "Circle",
     "Edge",
     "Element",
@@ -38,6 +39,15 @@ MAX_OFFSET = 10.0  # m
 MAX_IMAGE_PIXELS = 2048 * 2048
 MAX_POLYGON_VERTICES = 1000
 MAX_GRATING_COUNT = 100_000
+MAX_SPECTRAL_SAMPLES = 256
+MAX_SOURCE_DIAMETER = 0.1  # rad; the sun is 0.0093 rad, a frosted LED at a few cm ~0.05
+MAX_CAMERA_PIXELS_PER_SIDE = 4096
+# Relative widths of a spectrum about its centre that keep every sampled wavelength
+# positive: a Gaussian is sampled over ±3.5 standard deviations, a flat band over its width.
+MAX_GAUSSIAN_FWHM = 0.6  # × wavelength
+MAX_FLAT_WIDTH = 1.5  # × wavelength
+GAUSSIAN_SPAN = 3.5  # sampled half-span of a Gaussian spectrum, in standard deviations
+FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 
 
 MIN_LENGTH = 1e-10  # m; below an atom's size no scalar diffraction applies
@@ -104,11 +114,63 @@ class Source(param.Parameterized):
         "lies before the aperture.",
         metadata={"unit": "m"},
     )
-    distance = _length(
-        0.1, "Distance of the point source before the aperture plane, m.", upper=1e4
-    )
+    distance = _length(0.1, "Distance of the point source before the aperture plane, m.", upper=1e4)
     tilt_x = _angle(0.0, "Angle of incidence about the y axis, rad.", limit=1.0)
     tilt_y = _angle(0.0, "Angle of incidence about the x axis, rad.", limit=1.0)
+    spectrum = param.Selector(
+        default="none",
+        objects=["none", "gaussian", "flat"],
+        doc="Spectrum of the source: 'none' for monochromatic light at the wavelength; "
+        "'gaussian' (full width at half maximum = bandwidth) or 'flat' (full width = "
+        "bandwidth), centred on the wavelength and shaped in wavelength.",
+    )
+    bandwidth = param.Number(
+        1e-8,
+        bounds=(0.0, 1e-3),
+        doc="Width of the spectrum, m: the FWHM of a Gaussian spectrum, the full width of a "
+        "flat one; 0 is monochromatic.",
+        metadata={"unit": "m"},
+    )
+    spectral_samples = param.Integer(
+        0,
+        bounds=(0, MAX_SPECTRAL_SAMPLES),
+        doc="Wavelengths sampled across the spectrum; 0 chooses the number from the path "
+        "differences that the screen sees.",
+        metadata={"unit": ""},
+    )
+    source_diameter = param.Number(
+        0.0,
+        bounds=(0.0, MAX_SOURCE_DIAMETER),
+        doc="Angular diameter of the source seen from the aperture, rad: a uniform, "
+        "incoherent disk of directions about the incidence; 0 for a point-like source.",
+        metadata={"unit": "rad"},
+    )
+
+    def check(self) -> list[tuple[str, str]]:
+        """Cross-parameter rules of the spectrum: every sampled wavelength stays in range."""
+        if self.spectrum == "none" or self.bandwidth == 0.0:
+            return []
+        lam, width = self.wavelength, self.bandwidth
+        if self.spectrum == "gaussian" and width > MAX_GAUSSIAN_FWHM * lam:
+            return [
+                (
+                    "bandwidth",
+                    f"a Gaussian spectrum of FWHM {width:g} m about {lam:g} m reaches zero "
+                    f"wavelength; use a FWHM of at most {MAX_GAUSSIAN_FWHM:g} × the wavelength",
+                )
+            ]
+        if self.spectrum == "flat" and width > MAX_FLAT_WIDTH * lam:
+            return [
+                (
+                    "bandwidth",
+                    f"a flat spectrum {width:g} m wide about {lam:g} m reaches too short "
+                    f"wavelengths; use at most {MAX_FLAT_WIDTH:g} × the wavelength",
+                )
+            ]
+        half = GAUSSIAN_SPAN * width / FWHM_PER_SIGMA if self.spectrum == "gaussian" else width / 2
+        if lam + half > 1e-3:
+            return [("bandwidth", f"the spectrum reaches beyond 1 mm ({lam + half:g} m)")]
+        return []
 
 
 class Element(param.Parameterized):
@@ -342,6 +404,94 @@ class Numerics(param.Parameterized):
         return []
 
 
+class Camera(param.Parameterized):
+    """A camera sensor on the screen plane: its pixels, their response and their noise.
+
+    The sensor is ``pixels_x`` × ``pixels_y`` square pixels of ``pixel_pitch``, centred
+    on (``offset_x``, ``offset_y``) of the screen plane. Each pixel collects the light on
+    its active area (a centred square holding ``fill_factor`` of the pixel), turns the
+    photons into photoelectrons with ``quantum_efficiency``, holds at most ``full_well``
+    of them, and is read out with ``read_noise`` into digital numbers of ``bit_depth``
+    bits, full scale at the full well.
+    """
+
+    pixel_pitch = _length(
+        5e-6, "Centre-to-centre distance of the pixels, m.", lower=1e-7, upper=1e-3
+    )
+    pixels_x = param.Integer(
+        1280,
+        bounds=(1, MAX_CAMERA_PIXELS_PER_SIDE),
+        doc="Pixels across the sensor (along x).",
+        metadata={"unit": ""},
+    )
+    pixels_y = param.Integer(
+        1024,
+        bounds=(1, MAX_CAMERA_PIXELS_PER_SIDE),
+        doc="Pixels down the sensor (along y).",
+        metadata={"unit": ""},
+    )
+    offset_x = param.Number(
+        0.0,
+        bounds=(-1e3, 1e3),
+        doc="Centre of the sensor on the screen plane, x, m.",
+        metadata={"unit": "m"},
+    )
+    offset_y = param.Number(
+        0.0,
+        bounds=(-1e3, 1e3),
+        doc="Centre of the sensor on the screen plane, y, m.",
+        metadata={"unit": "m"},
+    )
+    fill_factor = param.Number(
+        1.0,
+        bounds=(0.0, 1.0),
+        inclusive_bounds=(False, True),
+        doc="Fraction of each pixel's area that collects light (a centred square).",
+        metadata={"unit": ""},
+    )
+    quantum_efficiency = param.Number(
+        0.6,
+        bounds=(0.0, 1.0),
+        inclusive_bounds=(False, True),
+        doc="Photoelectrons per incident photon on the active area.",
+        metadata={"unit": ""},
+    )
+    exposure = param.Number(
+        5e-5,
+        bounds=(0.0, 1e4),
+        inclusive_bounds=(False, True),
+        doc="Exposure time, s.",
+        metadata={"unit": "s"},
+    )
+    full_well = param.Number(
+        2e4,
+        bounds=(1.0, 1e9),
+        doc="Photoelectrons a pixel holds before it saturates; the digital full scale.",
+        metadata={"unit": "e⁻"},
+    )
+    bit_depth = param.Integer(
+        12,
+        bounds=(1, 32),
+        doc="Bits of the digital numbers; full scale 2^bits − 1 at the full well.",
+        metadata={"unit": ""},
+    )
+    read_noise = param.Number(
+        2.0,
+        bounds=(0.0, 1e6),
+        doc="Read noise, photoelectrons rms.",
+        metadata={"unit": "e⁻"},
+    )
+    shot_noise = param.Boolean(
+        True, doc="Draw the photoelectrons from their Poisson distribution (photon shot noise)."
+    )
+    seed = param.Integer(
+        0,
+        bounds=(0, 2**32 - 1),
+        doc="Seed of the noise: the same seed gives the same frame.",
+        metadata={"unit": ""},
+    )
+
+
 class Setup(param.Parameterized):
     """A whole bench: what a snapshot holds."""
 
@@ -349,19 +499,31 @@ class Setup(param.Parameterized):
     aperture = param.ClassSelector(class_=Aperture, default=None, instantiate=True)
     screen = param.ClassSelector(class_=Screen, default=None, instantiate=True)
     numerics = param.ClassSelector(class_=Numerics, default=None, instantiate=True)
+    camera = param.ClassSelector(
+        class_=Camera,
+        default=None,
+        allow_None=True,
+        doc="A camera sensor on the screen plane, or None for the screen alone.",
+    )
     meta = param.Dict(default={}, doc="Title, note, creation time, app version.")
     view = param.Dict(default={}, doc="Display settings; they never change a computed number.")
 
     def __init__(self, **params):
-        params.setdefault("source", Source())
-        params.setdefault("aperture", Aperture())
-        params.setdefault("screen", Screen())
-        params.setdefault("numerics", Numerics())
+        # Build a default section only when it is missing (setdefault would build all four).
+        for name, cls in (
+            ("source", Source),
+            ("aperture", Aperture),
+            ("screen", Screen),
+            ("numerics", Numerics),
+        ):
+            if name not in params:
+                params[name] = cls()
         super().__init__(**params)
 
     def check(self) -> list[tuple[str, str]]:
         """Cross-parameter rules of the whole setup, as ``[(path, message), ...]``."""
-        problems = [(f"screen.{k}", m) for k, m in self.screen.check()]
+        problems = [(f"source.{k}", m) for k, m in self.source.check()]
+        problems += [(f"screen.{k}", m) for k, m in self.screen.check()]
         problems += [(f"numerics.{k}", m) for k, m in self.numerics.check()]
         for i, el in enumerate(self.aperture.elements):
             problems += [(f"aperture.elements[{i}].{k}", m) for k, m in el.check()]

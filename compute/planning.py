@@ -357,7 +357,7 @@ def _fraction_pitch(g: _Geometry, extent: float) -> float:
 
 
 MAX_SAMPLES_PER_SIDE = 1 << 20
-KERNEL_BUILD_BYTES = 64  # per grid sample, measured with tracemalloc
+KERNEL_BUILD_BYTES = 16  # per grid sample while a kernel is built, measured with tracemalloc
 
 
 def _count(span: float, pitch: float, path: str, extra: int = 0) -> int:
@@ -448,9 +448,9 @@ def _plan_convolution_route(g, box, src, setup, dtype, reasons, method, variant)
         )
     sny, snx = setup.screen.shape_px()
     b = _bytes_per(dtype)
-    # Three grid arrays (field, spectrum, kernel) plus the float64 temporaries of
+    # The padded field (transformed in place), the cached kernel, and the peak of
     # building the kernel once.
-    mem = (3 * b + KERNEL_BUILD_BYTES) * big_x * big_y + 8 * snx * sny * 4
+    mem = (2 * b + max(KERNEL_BUILD_BYTES, 3 * b // 2)) * big_x * big_y + 8 * snx * sny * 4
     if not user:
         # Centre the grid on a screen pixel nearest the middle of the union.
         xs, ys = screen_axes(setup)

@@ -143,7 +143,10 @@ def fraunhofer(
     py, px = _screen_phase(xs, ys, wavelength, z, dtype)
     k = 2.0 * math.pi / wavelength
     pre = np.exp(1j * ((k * z) % (2 * math.pi))) / (1j * wavelength * z)
-    return spec * py * px * dtype.type(pre)
+    spec *= py  # in place, in the order of spec · py · px · pre
+    spec *= px
+    spec *= dtype.type(pre)
+    return spec
 
 
 def lens_phase(x: np.ndarray, y: np.ndarray, wavelength: float, focal_length: float):
@@ -186,7 +189,8 @@ def fresnel_impulse_response(
         a = math.pi * inv / wavelength
         cy = np.exp(1j * a * np.asarray(y, np.float64) ** 2).astype(dtype)[:, None]
         cx = np.exp(1j * a * np.asarray(x, np.float64) ** 2).astype(dtype)[None, :]
-        u = u * cy * cx
+        u = u * cy  # a new array: the caller's field is not modified
+        u *= cx
     return fraunhofer(u, x, y, wavelength, z, xs, ys, pitch=pitch)
 
 
@@ -198,12 +202,15 @@ def fresnel_transfer_kernel(
     Goodman §4.2.3, eq. 4-21. Separable, so it is built as an outer product.
     """
     ny, nx = shape
+    dtype = np.dtype(dtype)
     fx = np.fft.fftfreq(nx, dx)
     fy = np.fft.fftfreq(ny, dy)
     k = 2.0 * math.pi / wavelength
-    hx = np.exp(-1j * math.pi * wavelength * z * fx**2)
-    hy = np.exp(-1j * (math.pi * wavelength * z * fy**2 - (k * z) % (2 * math.pi)))
-    return np.multiply.outer(hy, hx).astype(dtype, copy=False)
+    # Phases in float64, then the outer product in the kernel's own precision:
+    # no double-precision (ny, nx) temporary.
+    hx = np.exp(-1j * math.pi * wavelength * z * fx**2).astype(dtype)
+    hy = np.exp(-1j * (math.pi * wavelength * z * fy**2 - (k * z) % (2 * math.pi))).astype(dtype)
+    return np.multiply.outer(hy, hx)
 
 
 def band_limit(n: int, d: float, wavelength: float, z: float) -> float:
@@ -234,27 +241,68 @@ def angular_spectrum_kernel(
     removes the aliasing of the sampled kernel at long distances.
     """
     ny, nx = shape
+    dtype = np.dtype(dtype)
     fx = np.fft.fftfreq(nx, dx)
     fy = np.fft.fftfreq(ny, dy)
-    inv_l2 = 1.0 / wavelength**2
-    arg = inv_l2 - fx[None, :] ** 2 - fy[:, None] ** 2
-    root = np.sqrt(np.abs(arg))
-    prop = arg >= 0
-    # Split off the carrier exp(ikz) so the phase stays small, and form
-    # √(1/λ² − f²) − 1/λ = −f²/(√… + 1/λ) without cancellation.
-    f2 = fx[None, :] ** 2 + fy[:, None] ** 2
-    h = np.where(
-        prop,
-        np.exp(-2j * math.pi * z * f2 / (root + 1.0 / wavelength)),
-        np.exp(-2.0 * math.pi * z * root - 2j * math.pi * z / wavelength),
-    )
-    h *= np.exp(1j * ((2.0 * math.pi * z / wavelength) % (2 * math.pi)))
+    fx2, fy2 = fx**2, fy**2
+    inv_l = 1.0 / wavelength
+    inv_l2 = inv_l * inv_l
+    two_pi = 2.0 * math.pi
+    carrier = (two_pi * z * inv_l) % two_pi
+    # One float64 phase array, reused in place. The carrier exp(ikz) is split
+    # off so the phase stays small, and √(1/λ² − f²) − 1/λ = −f²/(√… + 1/λ) is
+    # formed without cancellation.
+    f2 = np.add.outer(fy2, fx2)
+    evanescent = f2 > inv_l2 if fy2.max() + fx2.max() > inv_l2 else None
+    root = np.subtract(inv_l2, f2)
+    if evanescent is not None:
+        np.abs(root, out=root)
+    np.sqrt(root, out=root)
+    decay = None if evanescent is None else np.exp(-two_pi * z * root[evanescent])
+    root += inv_l
+    phase = np.divide(f2, root, out=f2)
+    del f2
+    phase *= -two_pi * z
+    phase += carrier
+    # Reduce to [−π, π] in float64 before any cast, so single precision is exact
+    # to its storage.
+    turns = np.multiply(phase, 1.0 / two_pi, out=root)
+    np.rint(turns, out=turns)
+    turns *= two_pi
+    phase -= turns
+    del turns, root
+    if dtype == np.complex64:
+        phase = phase.astype(np.float32)
+    h = np.empty(shape, dtype=dtype)
+    np.cos(phase, out=h.real)
+    np.sin(phase, out=h.imag)
+    del phase
+    if decay is not None:
+        # exp(−2πz√(f² − 1/λ²)) exp(−ikz): the carrier cancels the phase exactly.
+        h[evanescent] = decay
     if limit:
         ux = band_limit(nx, dx, wavelength, z)
         uy = band_limit(ny, dy, wavelength, z)
-        h *= _band_window(fx, ux, wavelength, rolloff)[None, :]
-        h *= _band_window(fy, uy, wavelength, rolloff)[:, None]
-    return h.astype(dtype, copy=False)
+        _apply_window(h, _band_window(fy, uy, wavelength, rolloff), axis=0)
+        _apply_window(h, _band_window(fx, ux, wavelength, rolloff), axis=1)
+    return h
+
+
+def _apply_window(h: np.ndarray, w: np.ndarray, axis: int) -> None:
+    """h *= w along ``axis``, in place, touching only the rows or columns where w < 1.
+
+    In FFT order |f| rises to the Nyquist frequency and falls again, so the rolled-off
+    part of a band window is one contiguous run in the middle.
+    """
+    below = np.flatnonzero(w < 1.0)
+    if below.size == 0:
+        return
+    sl = slice(int(below[0]), int(below[-1]) + 1)
+    part = w[sl].astype(h.real.dtype)
+    if axis == 0:
+        h[sl, :] *= part[:, None]
+    else:
+        h[:, sl] *= part[None, :]
 
 
 def _band_window(f: np.ndarray, u_limit: float, wavelength: float, rolloff: float) -> np.ndarray:
@@ -274,15 +322,19 @@ def _band_window(f: np.ndarray, u_limit: float, wavelength: float, rolloff: floa
     return 0.5 * (1.0 + np.cos(np.pi * s))
 
 
-def propagate_fft(u_padded: np.ndarray, kernel: np.ndarray) -> np.ndarray:
+def propagate_fft(
+    u_padded: np.ndarray, kernel: np.ndarray, *, overwrite: bool = False
+) -> np.ndarray:
     """Convolution propagation: IFFT[FFT(u) · H] on the padded grid, same shape.
 
     ``u_padded`` must already be zero-padded (twice the support, for a linear
-    rather than circular convolution); it is not modified.
+    rather than circular convolution). It is not modified unless ``overwrite``
+    is set; then the whole propagation may run in place in it, with no other
+    grid-sized array (pass it when the padded field is a temporary, and allocate
+    it with :func:`compute.fft.zeros` so the FFT can work on it in place).
     """
-    spec = _fft.fft2(u_padded)
-    spec *= kernel
-    return _fft.ifft2(spec, overwrite=True)
+    spec = _fft.fft2(u_padded, overwrite=overwrite)
+    return _fft.multiply_ifft2(spec, kernel)
 
 
 def spectrum_to_points(
@@ -292,23 +344,26 @@ def spectrum_to_points(
     y: np.ndarray,
     xs: np.ndarray,
     ys: np.ndarray,
+    *,
+    overwrite: bool = False,
 ) -> np.ndarray:
     """Convolution propagation evaluated at arbitrary screen pixels (xs, ys).
 
     The propagated field is the trigonometric series Σ A(f) H(f) exp(2πi f·x) Δf
     over the FFT frequencies; evaluating it by a matrix Fourier transform at the
     screen pixels is exact for any pitch inside the periodic window, where
-    slicing the inverse FFT would need the pixels on the grid.
+    slicing the inverse FFT would need the pixels on the grid. With
+    ``overwrite`` the transform may run in place in ``u_padded``.
     """
     ny, nx = u_padded.shape
     dx, dy = _pitch(x), _pitch(y)
     fx = np.fft.fftfreq(nx, dx)
     fy = np.fft.fftfreq(ny, dy)
-    spec = _fft.fft2(u_padded)
-    spec *= dx * dy
-    # FFT index 0 sits at x[0], not at 0: restore the absolute phase.
+    spec = _fft.fft2(u_padded, overwrite=overwrite)
+    # FFT index 0 sits at x[0], not at 0: restore the absolute phase. The pixel
+    # area rides on the row factor, saving a pass over the grid.
     dtype = spec.dtype
-    spec *= (np.exp(-2j * math.pi * fy * y[0]).astype(dtype))[:, None]
+    spec *= (dx * dy * np.exp(-2j * math.pi * fy * y[0])).astype(dtype)[:, None]
     spec *= (np.exp(-2j * math.pi * fx * x[0]).astype(dtype))[None, :]
     spec *= kernel
     df = (1.0 / (nx * dx), 1.0 / (ny * dy))

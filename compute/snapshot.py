@@ -11,6 +11,11 @@ value found and what was expected.
 The canonical form of a snapshot keeps the physics sections only, with sorted
 keys and normalised numbers; its SHA-256 identifies the physics of a setup, so
 that display settings and notes never change it.
+
+Keys that later releases of version 1 added (the spectrum and the size of the
+source, the ``camera`` section) are optional: a document without them reads as
+before, and they are written, and enter the canonical form, only when they
+differ from their defaults, so that older snapshots keep their bytes and hash.
 """
 
 from __future__ import annotations
@@ -29,7 +34,16 @@ from typing import Any
 import param
 
 from compute import model
-from compute.model import ELEMENT_TYPES, Aperture, Element, Numerics, Screen, Setup, Source
+from compute.model import (
+    ELEMENT_TYPES,
+    Aperture,
+    Camera,
+    Element,
+    Numerics,
+    Screen,
+    Setup,
+    Source,
+)
 from compute.pngdata import PngDataError, decode_png_data_url
 
 __all__ = [
@@ -54,7 +68,17 @@ VERSION = 1
 MAX_SNAPSHOT_BYTES = 5 * 1024 * 1024
 PHYSICS_SECTIONS = ("source", "aperture", "screen", "numerics")
 
-_TOP_KEYS = ("format", "version", "meta", "source", "aperture", "screen", "numerics", "view")
+_TOP_KEYS = (
+    "format",
+    "version",
+    "meta",
+    "source",
+    "aperture",
+    "screen",
+    "numerics",
+    "camera",
+    "view",
+)
 _REQUIRED_TOP = ("format", "version", "source", "aperture", "screen", "numerics")
 _META_KEYS = ("title", "note", "created", "app_version")
 
@@ -67,6 +91,11 @@ _SOURCE_REQUIRED = {
 }
 _SCREEN_REQUIRED = ("distance", "width", "height", "samples")
 _NUMERICS_REQUIRED: tuple[str, ...] = ()
+# A camera section, when present, must say what the sensor is; the rest has defaults.
+_CAMERA_REQUIRED = ("pixel_pitch", "pixels_x", "pixels_y")
+# Source keys added after the first release: left out when at their defaults, so that
+# a snapshot without them keeps its bytes and its physics hash.
+_SOURCE_OPTIONAL = ("spectrum", "bandwidth", "spectral_samples", "source_diameter")
 _APERTURE_REQUIRED = ("background", "elements")
 _ELEMENT_REQUIRED = ("shape", "x", "y")
 _ELEMENT_COMMON = ("x", "y", "angle", "transmission", "phase")
@@ -229,6 +258,11 @@ class _Reader:
         """Check one value against its parameter; return ``(ok, cleaned value)``."""
         if isinstance(p, param.Selector):
             return self.choice(value, path, list(p.objects))
+        if isinstance(p, param.Boolean):
+            if isinstance(value, bool):
+                return True, value
+            self.error(path, f"expected true or false, got {_show(value)} ({_kind(value)})")
+            return False, None
         if isinstance(p, param.Number):
             if value is None and p.allow_None:
                 return True, None
@@ -559,6 +593,11 @@ def _from_document(data: Any, where: str) -> Setup:
         if "numerics" in data
         else None
     )
+    camera = None
+    camera_broken = False
+    if data.get("camera") is not None:
+        camera = reader.section(data["camera"], "camera", Camera, _CAMERA_REQUIRED)
+        camera_broken = camera is None
     view = reader.view(data["view"]) if "view" in data else {}
 
     # Cross-parameter rules of the model, on the sections that read cleanly;
@@ -574,11 +613,14 @@ def _from_document(data: Any, where: str) -> Setup:
         if part is None
     ]
     skip += [f"aperture.elements[{i}]" for i in broken]
+    if camera_broken:
+        skip.append("camera")
     probe = Setup(
         source=source or Source(),
         aperture=aperture or Aperture(),
         screen=screen or Screen(),
         numerics=numerics or Numerics(),
+        camera=camera,
     )
     for path, message in _cross_rules(probe):
         if not any(path == s or path.startswith((s + ".", s + "[")) for s in skip):
@@ -587,7 +629,13 @@ def _from_document(data: Any, where: str) -> Setup:
     if reader.errors:
         raise SnapshotError(reader.errors)
     return Setup(
-        source=source, aperture=aperture, screen=screen, numerics=numerics, meta=meta, view=view
+        source=source,
+        aperture=aperture,
+        screen=screen,
+        numerics=numerics,
+        camera=camera,
+        meta=meta,
+        view=view,
     )
 
 
@@ -598,6 +646,7 @@ def _cross_rules(probe: Setup) -> list[tuple[str, str]]:
     except ArithmeticError:
         pass
     parts: list[tuple[str, param.Parameterized]] = [
+        ("source", probe.source),
         ("screen", probe.screen),
         ("numerics", probe.numerics),
     ]
@@ -632,7 +681,7 @@ def _clean_float(v: float) -> float:
 
 
 def _param_json(obj: param.Parameterized, name: str) -> Any:
-    p = obj.param[name]
+    p = type(obj).param[name]  # the class parameter: no per-instance copy is made
     v = getattr(obj, name)
     if v is None:
         return None
@@ -645,27 +694,41 @@ def _param_json(obj: param.Parameterized, name: str) -> Any:
     return v
 
 
-def _section_json(obj: param.Parameterized) -> dict[str, Any]:
-    return {n: _param_json(obj, n) for n in _param_names(type(obj))}
+def _section_json(obj: param.Parameterized, optional: tuple[str, ...] = ()) -> dict[str, Any]:
+    """Every key of a section; those in ``optional`` only when they differ from the default."""
+    out = {}
+    for n in _param_names(type(obj)):
+        if n in optional and getattr(obj, n) == type(obj).param[n].default:
+            continue
+        out[n] = _param_json(obj, n)
+    return out
 
 
 def to_dict(setup: Setup) -> dict[str, Any]:
-    """The complete snapshot document of ``setup``: every key written, SI floats."""
+    """The complete snapshot document of ``setup``: every key written, SI floats.
+
+    The source keys added after the first release (spectrum, bandwidth, spectral
+    samples, source diameter) are written only when they differ from their defaults,
+    and the ``camera`` section only when a camera is set (then with every key).
+    """
     elements = []
     for el in setup.aperture.elements:
         doc: dict[str, Any] = {"shape": el.shape}
         doc.update({k: _param_json(el, k) for k in _element_keys(type(el))})
         elements.append(doc)
-    return {
+    out = {
         "format": FORMAT,
         "version": VERSION,
         "meta": copy.deepcopy(dict(setup.meta)),
-        "source": _section_json(setup.source),
+        "source": _section_json(setup.source, _SOURCE_OPTIONAL),
         "aperture": {"background": setup.aperture.background, "elements": elements},
         "screen": _section_json(setup.screen),
         "numerics": _section_json(setup.numerics),
-        "view": copy.deepcopy(dict(setup.view)),
     }
+    if setup.camera is not None:
+        out["camera"] = _section_json(setup.camera)
+    out["view"] = copy.deepcopy(dict(setup.view))
+    return out
 
 
 def _parse(text: str | bytes, where: str) -> Any:
@@ -750,12 +813,14 @@ def _normalise(value: Any) -> Any:
 def canonical_json(setup: Setup) -> str:
     """The physics of ``setup`` as compact JSON with sorted keys and normalised numbers.
 
-    Only ``source``, ``aperture``, ``screen`` and ``numerics`` enter; ``meta`` and
-    ``view`` never do. Float parameters are written as the shortest repr that
-    reads back exactly, integer parameters as integers, ``-0.0`` as ``0.0``.
+    Only ``source``, ``aperture``, ``screen``, ``numerics`` and, when a camera is
+    set, ``camera`` enter; ``meta`` and ``view`` never do. Float parameters are
+    written as the shortest repr that reads back exactly, integer parameters as
+    integers, ``-0.0`` as ``0.0``. Source keys at their defaults that the first
+    release did not have are left out, so that the hash of an older snapshot stays.
     """
     doc = to_dict(setup)
-    physics = {k: _normalise(doc[k]) for k in PHYSICS_SECTIONS}
+    physics = {k: _normalise(doc[k]) for k in (*PHYSICS_SECTIONS, "camera") if k in doc}
     return json.dumps(
         physics, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False
     )

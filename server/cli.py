@@ -113,6 +113,11 @@ def _npz_bytes(result: Any, meta: dict[str, Any], with_field: bool) -> bytes:
     }
     if with_field:
         arrays["field"] = np.asarray(result.field, dtype=np.complex128)
+    # With a camera: the frame in digital numbers, its pixel centres and saturated pixels.
+    extras = getattr(result, "extras", None) or {}
+    for name in ("counts", "camera_x", "camera_y", "saturated"):
+        if name in extras:
+            arrays[name] = np.asarray(extras[name])
     buf = io.BytesIO()
     np.savez(buf, **arrays)
     return buf.getvalue()
@@ -263,6 +268,12 @@ def _cmd_serve(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_bench(args: argparse.Namespace) -> int:
+    from server import benchmark
+
+    return benchmark.run_from_args(args)
+
+
 # -- parser -----------------------------------------------------------------------
 
 
@@ -349,6 +360,34 @@ def build_parser() -> argparse.ArgumentParser:
     secret.add_argument("--password-file", metavar="FILE", help="read the password from FILE")
     serve.add_argument("--address", help="address to bind (default 127.0.0.1)")
     serve.set_defaults(func=_cmd_serve)
+
+    bench = sub.add_parser(
+        "bench",
+        help="measure propagation speed against a bare FFT pair and plain numpy",
+        description="Time each FFT-based propagation against a bare forward and inverse FFT "
+        "of the same size and against the plain numpy recipe, in one run on this machine; "
+        "then a cached repeat, the default preset, a camera window and the peak memory.",
+        epilog="example:\n  fringebench bench --quick --json",
+        formatter_class=fmt,
+    )
+    bench.add_argument("--json", action="store_true", help="print the rows as a JSON list")
+    bench.add_argument(
+        "--quick", action="store_true", help="N = 1024 and 2048 in single precision only"
+    )
+    bench.add_argument("--tiny", action="store_true", help=argparse.SUPPRESS)  # N = 256, tests
+    bench.set_defaults(func=_cmd_bench)
+
+    from server import sweepcli  # the sweep command lives in its own module
+
+    sweep = sub.add_parser(
+        "sweep",
+        help=sweepcli.HELP,
+        description=sweepcli.DESCRIPTION,
+        epilog=sweepcli.EPILOG,
+        formatter_class=fmt,
+    )
+    sweepcli.add_arguments(sweep)
+    sweep.set_defaults(func=sweepcli.run)
     return parser
 
 

@@ -389,15 +389,6 @@ def test_unknown_preset_name_is_refused():
         load_preset("no-such-preset")
 
 
-def test_share_is_refused_with_a_clear_message():
-    from server.serving import ServeError, serve
-
-    with pytest.raises(ServeError, match="later version"):
-        serve(share=True)
-    with pytest.raises(ServeError, match=r"127\.0\.0\.1 only"):
-        serve(address="0.0.0.0")
-
-
 def test_dashboard_renders_outside_a_server_as_in_a_notebook(dash):
     # What a Jupyter cell does with the object: build the Bokeh models of its layout.
     from bokeh.document import Document

@@ -1,0 +1,117 @@
+"""Benchmark: speed-up of a 64-point sweep on two local Dask workers over the serial run.
+
+The sweep is the Talbot-grating preset over 64 screen distances from 5 mm to 30 mm
+(the angular-spectrum near field), once in the preset's single precision and once
+in double precision, whose points cost about twice as much. Each is timed four
+ways in one run on this machine:
+
+* serial, as ``fringebench sweep`` runs by default (and, to show how much of the
+  machine that already uses, serial with one FFT thread);
+* ``--workers 2``: a local cluster of two single-threaded processes, its start
+  and shutdown included, as a user waits for it;
+* on an already running two-worker cluster (``--scheduler``), which leaves only
+  the computing and the traffic.
+
+Every run starts with empty kernel caches, so none profits from an earlier one.
+The ways take turns for ``--repeat`` rounds and each figure is the best of
+its runs, so that all see the machine in its quietest moments; the rows of every
+run must be identical. The machine may be shared: the load average is printed
+with every run. A benchmark, not a test: nothing here passes or fails.
+
+    .venv/bin/python bench/sweep_speedup.py [--repeat 2] [--points 64] [--precision single]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from compute import engine, snapshot, sweep  # noqa: E402
+from compute import fft as _fft  # noqa: E402
+
+PRESET = ROOT / "presets" / "talbot-grating.json"
+
+
+def _clear_caches() -> None:
+    engine.KERNEL_CACHE.clear()
+    engine.RESULT_CACHE.clear()
+
+
+def _one_fft_thread(plan: sweep.SweepPlan) -> list:
+    saved = _fft.WORKERS
+    _fft.WORKERS = 1
+    try:
+        return sweep.run_plan(plan)
+    finally:
+        _fft.WORKERS = saved
+
+
+def bench_one(plan: sweep.SweepPlan, label: str, repeat: int, client, address: str) -> None:
+    ways = {
+        "serial": lambda: sweep.run_plan(plan),
+        "serial, one FFT thread": lambda: _one_fft_thread(plan),
+        "--workers 2 (start included)": lambda: sweep.run_plan(plan, workers=2),
+        "2 running workers": lambda: sweep.run_plan(plan, scheduler=address),
+    }
+    times: dict[str, list[float]] = {name: [] for name in ways}
+    reference = None
+    for r in range(repeat):
+        for name, run in ways.items():
+            _clear_caches()
+            client.run(_clear_caches)
+            load = os.getloadavg()[0]
+            t0 = time.perf_counter()
+            rows = run()
+            times[name].append(time.perf_counter() - t0)
+            if reference is None:
+                reference = rows
+            elif rows != reference:
+                raise SystemExit(f"{label}, {name}: the rows differ from the first run")
+            print(f"{label}  round {r + 1}  {name:<30} {times[name][-1]:7.2f} s  (load {load:.2f})")
+    best = {name: min(t) for name, t in times.items()}
+    serial, single, cold, warm = (best[n] for n in ways)
+    print(
+        f"{label}: best serial {serial:.2f} s (one FFT thread {single:.2f} s), --workers 2 "
+        f"{cold:.2f} s, running workers {warm:.2f} s; speed-up --workers 2 "
+        f"{serial / cold:.2f}×, running workers {serial / warm:.2f}× "
+        f"({single / warm:.2f}× over one thread); rows identical in every run"
+    )
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeat", type=int, default=2, help="rounds (default 2)")
+    parser.add_argument("--points", type=int, default=64, help="points of the sweep (default 64)")
+    parser.add_argument(
+        "--precision",
+        choices=["single", "double", "both"],
+        default="both",
+        help="which sweep (default both)",
+    )
+    args = parser.parse_args()
+
+    print(f"sweep: {args.points} points of {PRESET.name}, screen.distance 5 mm to 30 mm")
+    print(f"machine: {os.cpu_count()} CPUs")
+    # The very cluster that --workers starts, kept running for the third way.
+    cluster, client = sweep._start_local_cluster(2)
+    with cluster, client:
+        address = cluster.scheduler_address
+        chosen = ("single", "double") if args.precision == "both" else (args.precision,)
+        for precision in chosen:
+            setup = snapshot.load(PRESET)
+            setup.numerics.precision = precision
+            plan = sweep.plan_sweep(setup, [f"screen.distance=0.005:0.03:{args.points}"])
+            # Warm up the running workers: imports, and one FFT thread each.
+            client.gather(client.map(sweep.compute_point, plan.docs[:2], pure=False, fft_threads=1))
+            bench_one(plan, precision, args.repeat, client, address)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
