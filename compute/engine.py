@@ -140,8 +140,13 @@ def _physics_key(setup: Setup) -> str:
 
 
 def check(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
-    """Plan ``setup`` and report its validity without propagating anything."""
-    return planning.plan(setup, memory_limit=memory_limit)
+    """Plan ``setup`` and report its validity without propagating anything.
+
+    Partially coherent setups and setups with a camera add their own report lines.
+    """
+    from . import incoherent
+
+    return incoherent.check(setup, memory_limit=memory_limit)
 
 
 # --------------------------------------------------------------------------- sampling

@@ -176,7 +176,7 @@ def test_shift_route_matches_the_sampled_route(monkeypatch):
     assert np.max(np.abs(exact - sampled)) < 5e-3 * exact.max()
 
 
-def _recording(monkeypatch) -> list:
+def _spy_on_components(monkeypatch) -> list:
     """Record the setups of the monochromatic components that reach the engine."""
     seen: list = []
     original = engine.compute
@@ -200,7 +200,7 @@ def test_every_wavelength_lands_on_the_same_pixels_and_once(monkeypatch):
         spectral_samples=16,
     )
     setup = double_slit(src, x0=0.0, width=0.01, samples=200)
-    seen = _recording(monkeypatch)
+    seen = _spy_on_components(monkeypatch)
     res = engine.compute(setup, use_cache=False)
     # One monochromatic computation per wavelength and nothing else: the cost of a
     # 16-wavelength screen is that of 16 monochromatic ones plus the sums.
