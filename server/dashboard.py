@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import base64
 import datetime as _dt
+import functools
 import html
 import io
 import json
@@ -21,7 +22,7 @@ import math
 import re
 import threading
 from collections.abc import Callable
-from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import Future
 from pathlib import Path
 from typing import Any
 
@@ -30,14 +31,13 @@ import numpy as np
 import pandas as pd
 import panel as pn
 import param
-from panel.io.state import set_curdoc
 
 import compute
 from compute import engine, snapshot
 from compute.errors import SetupError
 from compute.model import ELEMENT_TYPES, Element, Setup
 from compute.pngdata import PngDataError, decode_png_data_url
-from server import controls, urlstate, views
+from server import controls, sharing, urlstate, views
 from server.controls import SHAPE_LABELS, ElementEditor, SetupControls, to_display
 
 __all__ = ["MAX_UPLOAD_BYTES", "Dashboard"]
@@ -53,8 +53,8 @@ SAFETY_TEXT = (
 _ASSETS = Path(__file__).resolve().parent / "assets"
 _PATH = re.compile(r"^(source|screen|numerics|aperture)(?:\.elements\[(\d+)\])?\.(\w+)$")
 
-# One pool for the process: two cores, and a session computes one setup at a time.
-_POOL = ThreadPoolExecutor(max_workers=2, thread_name_prefix="fringebench-compute")
+# Computations run on the server-wide queue (server.sharing.COMPUTE_QUEUE): bounded
+# lanes and a memory budget shared by every session; a session computes one setup at a time.
 
 
 def _stylesheet() -> str:
@@ -154,6 +154,11 @@ class Dashboard(pn.viewable.Viewer):
         self._closed = views.ClosedForm(None, "")
         self._map_data = None
         self._pending_messages = list(messages or [])
+        # Follow mode (server.sharing): the link while this session mirrors a shared one,
+        # and this session's turn in the compute and screen queues (lower goes first).
+        self.following: Any = None
+        self.priority: int = sharing.PRIORITY_OTHER
+        self._preview_shown: tuple | None = None
         self.messages: list[tuple[str, str]] = []  # (level, text), newest last
         self._plots_built = False
         self._applying_view = False
@@ -240,6 +245,8 @@ class Dashboard(pn.viewable.Viewer):
 
         Returns True when the change was committed.
         """
+        if self._read_only():  # follow mode hook: a follower's setup is the shared one
+            return False
         try:
             candidate = clone(self.setup)
             obj, name = self._resolve(candidate, path)
@@ -276,6 +283,8 @@ class Dashboard(pn.viewable.Viewer):
 
     def _edit(self, change: Callable[[Setup], None], *, select: int | None = None) -> bool:
         """Apply ``change`` to a copy of the setup; commit it when the copy checks out."""
+        if self._read_only():  # follow mode hook
+            return False
         candidate = clone(self.setup)
         try:
             change(candidate)
@@ -340,6 +349,8 @@ class Dashboard(pn.viewable.Viewer):
 
     def load(self, setup: Setup, *, origin: str = "setup") -> None:
         """Replace the whole setup (a preset, an import, a link); the view follows it."""
+        if self._read_only():  # follow mode hook
+            return
         self.selected = 0
         self._commit(clone(setup), view=setup.view)
         self.notify("info", f"Loaded {origin}.")
@@ -467,24 +478,15 @@ class Dashboard(pn.viewable.Viewer):
                 fut.set_exception(exc)
             self._finish(setup, fut)
             return
-        fut = _POOL.submit(_work, setup, self._shown_aperture)
+        job = functools.partial(_work, setup, self._shown_aperture)
+        fut = sharing.COMPUTE_QUEUE.submit(setup, job, priority=self.priority)  # queue hook
         fut.add_done_callback(lambda f: self._schedule(lambda: self._finish(setup, f)))
 
     def _schedule(self, callback: Callable[[], None]) -> None:
         """Run ``callback`` where the session's models may be changed."""
-        doc = self._doc
-        if doc is not None and doc.session_context is not None:
-
-            def in_session() -> None:
-                with set_curdoc(doc):
-                    callback()
-
-            try:
-                doc.add_next_tick_callback(in_session)
-            except Exception:  # the session has closed; nothing to show
-                log.debug("session closed before a result arrived")
-            return
-        callback()
+        # Queue hook: results reach the screens of all sessions in turn (server.sharing).
+        if not sharing.run_in_session(self._doc, callback, self.priority):
+            log.debug("session closed before a result arrived")
 
     def _finish(self, setup: Setup, fut: Future) -> None:
         with self._lock:
@@ -495,7 +497,9 @@ class Dashboard(pn.viewable.Viewer):
             self._start(self._wanted)  # coalesce: only the newest request is applied
             return
         exc = fut.exception()
-        if exc is not None:
+        if self.following is not None:
+            pass  # follow mode hook: the shared session's result is shown, not this one
+        elif exc is not None:
             if not isinstance(exc, (SetupError, snapshot.SnapshotError, MemoryError)):
                 log.error("computation failed", exc_info=exc)
             self.last_error = failure_message(exc)
@@ -634,6 +638,8 @@ class Dashboard(pn.viewable.Viewer):
         self.status = _html("", css_classes=["fb-status"], sizing_mode="stretch_width")
         self.state_pane = _html("", css_classes=["fb-state"], height=0, margin=0)
         self.overlay_note = _html("", css_classes=["fb-overlay-note"], sizing_mode="stretch_width")
+        # Follow mode hook: server.sharing puts the share controls in this row.
+        self.share_bar = pn.Row(css_classes=["fb-share-bar"], margin=(4, 10))
 
     def _elements_frame(self) -> pd.DataFrame:
         rows = []
@@ -772,6 +778,7 @@ class Dashboard(pn.viewable.Viewer):
 
     def _send_aperture(self, preview: tuple) -> None:
         """Show a new aperture preview, updating the plots in place once they exist."""
+        self._preview_shown = preview  # follow mode hook: what a new follower is sent
         if getattr(self, "_aperture_pipe", None) is None:
             self._aperture_pipe = hv.streams.Pipe(data=preview)
             self.aperture_pane.object = hv.DynamicMap(
@@ -891,6 +898,43 @@ class Dashboard(pn.viewable.Viewer):
         cls = "fb-status-error" if self.last_error and not self.busy else ""
         self.status.object = f'<span class="{cls}">{html.escape(text)}</span>'
 
+    # ------------------------------------------- follow mode hooks (server.sharing)
+
+    def _read_only(self) -> bool:
+        """True (after saying so) while this session follows a shared one."""
+        if self.following is None:
+            return False
+        self.notify("warning", sharing.READ_ONLY_TEXT)
+        self._refresh_controls()
+        return True
+
+    def shared_state(self) -> tuple[Setup | None, Any, tuple | None, dict]:
+        """What a follower shows: the result's setup, the result, its aperture preview, the view."""
+        preview = self._preview if self._preview is not None else self._preview_shown
+        return self._result_setup, self.result, preview, self.view_state()
+
+    def show_shared(self, setup: Setup, result: Any, preview: tuple | None, view: dict) -> None:
+        """Show another session's setup, view and result object as they are; compute nothing."""
+        self.setup = clone(setup)
+        with self._lock:
+            if self._running:  # an own job still runs: after it, the shown setup is wanted
+                self._wanted = self.setup
+        self._apply_view(view)
+        self._refresh_controls()
+        if result is not None and result is not self.result:
+            key = _aperture_key(self.setup)
+            if preview is not None and key != self._shown_aperture:
+                self._preview, self._shown_aperture = preview, key
+            self._result_setup = self.setup
+            self._closed = views.closed_form(self.setup, result.plan.method, result.plan.variant)
+            self.last_error = ""
+            self.result = result
+            self.results_applied += 1
+            self._show_result()
+        elif self._plots_built:
+            self._send_cuts()
+            self._update_state()
+
     # ------------------------------------------------------------------ layout
 
     def _card(self, title: str, *objects: Any, collapsed: bool = False, css: str = "") -> pn.Card:
@@ -917,6 +961,7 @@ class Dashboard(pn.viewable.Viewer):
                 css_classes=["fb-safety-pane"],
                 margin=(4, 10),
             ),
+            self.share_bar,
             sizing_mode="stretch_width",
             css_classes=["fb-header"],
         )

@@ -2,30 +2,534 @@
 
 Without sharing the server binds 127.0.0.1 only and accepts websocket
 connections from ``127.0.0.1:PORT`` and ``localhost:PORT`` only.
+
+With ``share=True`` it listens on all interfaces (or the one address given),
+prints the URLs that colleagues can open, and lets nobody in without the
+password: from ``--password``, ``--password-file`` or generated and printed
+once. The login cookie is signed with a secret drawn anew at every start, and
+websocket connections are accepted only from pages served under this
+machine's own addresses and port. Every browser gets its own session; the
+number of sessions, the size of a websocket message (uploads) and the
+computations (:data:`server.sharing.COMPUTE_QUEUE`) are bounded.
 """
 
 from __future__ import annotations
 
+import asyncio
 import errno
+import fcntl
+import hmac
+import html
+import ipaddress
+import logging
+import os
+import secrets
 import socket
+import struct
+import sys
+import threading
+import time
 import webbrowser
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
+from urllib.parse import urlsplit
+
+import tornado.web
 
 from compute import snapshot
 
-__all__ = ["LOOPBACK", "ServeError", "serve"]
+__all__ = [
+    "ALL_INTERFACES",
+    "DEFAULT_MAX_SESSIONS",
+    "LOOPBACK",
+    "MAX_MESSAGE_BYTES",
+    "MIN_PASSWORD_CHARS",
+    "ServeError",
+    "SessionLimit",
+    "generate_password",
+    "lan_addresses",
+    "password_matches",
+    "resolve_password",
+    "safe_next",
+    "serve",
+    "share_urls",
+    "websocket_origins",
+]
+
+log = logging.getLogger("fringebench.serving")
 
 LOOPBACK = "127.0.0.1"
+ALL_INTERFACES = "0.0.0.0"
+MIN_PASSWORD_CHARS = 8
+MAX_PASSWORD_CHARS = 512
+MAX_PASSWORD_FILE_BYTES = 4096
+#: Sessions (browser tabs) served at once; a further one gets a short notice.
+DEFAULT_MAX_SESSIONS = 16
+#: Largest websocket message: a 5 MB snapshot or a 4 MB PNG travels base64-encoded
+#: (4/3 larger) inside one message; anything far beyond closes that connection only.
+MAX_MESSAGE_BYTES = 8 * 1024 * 1024
+#: Largest HTTP request body (the login form is a few hundred bytes).
+MAX_BODY_BYTES = 64 * 1024
+LOGIN_TEMPLATE = Path(__file__).resolve().parent / "assets" / "login.html"
+_USER = "colleague"  # one shared password, so one user name for the login cookie
+_COOKIE_DAYS = 1
+# Unambiguous characters for a password read off a screen (no 0/O, 1/l/I).
+_ALPHABET = "abcdefghjkmnpqrstuvwxyz23456789"
+_SIOCGIFADDR = 0x8915  # Linux ioctl: the IPv4 address of an interface
 
 
 class ServeError(Exception):
     """The server cannot start as asked; the message says what to change."""
 
 
-def _free_port() -> int:
+# ------------------------------------------------------------------- passwords
+
+
+def generate_password(groups: int = 4, size: int = 4) -> str:
+    """A random password easy to read aloud: ``groups`` × ``size`` characters (≈ 79 bits)."""
+    return "-".join("".join(secrets.choice(_ALPHABET) for _ in range(size)) for _ in range(groups))
+
+
+def _check_password(password: str, origin: str) -> str:
+    if not password:
+        raise ServeError(f"{origin}: the password is empty")
+    if len(password) < MIN_PASSWORD_CHARS:
+        raise ServeError(
+            f"{origin}: the password has {len(password)} characters; "
+            f"use at least {MIN_PASSWORD_CHARS}"
+        )
+    if len(password) > MAX_PASSWORD_CHARS:
+        raise ServeError(f"{origin}: the password is longer than {MAX_PASSWORD_CHARS} characters")
+    if any(ord(c) < 32 or ord(c) == 127 for c in password):
+        raise ServeError(f"{origin}: the password contains control characters")
+    return password
+
+
+def _read_password_file(path: str) -> str:
+    origin = "--password-file"
+    p = Path(path)
+    try:
+        if not p.is_file():
+            raise ServeError(f"{origin}: {path!r} is not a file")
+        with open(p, "rb") as fh:
+            raw = fh.read(MAX_PASSWORD_FILE_BYTES + 1)
+    except OSError as exc:
+        raise ServeError(f"{origin}: cannot read {path!r} ({exc.strerror or exc})") from None
+    if len(raw) > MAX_PASSWORD_FILE_BYTES:
+        raise ServeError(
+            f"{origin}: {path!r} is over {MAX_PASSWORD_FILE_BYTES} bytes; "
+            "it should hold the password on its first line"
+        )
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise ServeError(f"{origin}: {path!r} is not UTF-8 text") from None
+    first = text.removeprefix("\ufeff").splitlines()[0] if text.strip() else ""
+    return _check_password(first, f"{origin} {path!r}")
+
+
+def resolve_password(password: str | None, password_file: str | None) -> tuple[str, bool]:
+    """The sharing password and whether it was generated here.
+
+    ``password`` wins over ``password_file`` (the command line allows only one);
+    with neither a random one is generated. The first line of the file is the
+    password (a final newline is not part of it).
+
+    Raises
+    ------
+    ServeError
+        An empty, short (under :data:`MIN_PASSWORD_CHARS`) or unreadable password.
+    """
+    if password is not None:
+        return _check_password(password, "--password"), False
+    if password_file is not None:
+        return _read_password_file(password_file), False
+    return generate_password(), True
+
+
+def password_matches(given: str, expected: str) -> bool:
+    """Compare in constant time (the time taken does not depend on where they differ)."""
+    return hmac.compare_digest(given.encode("utf-8"), expected.encode("utf-8"))
+
+
+# ------------------------------------------------------------------- addresses
+
+
+def _ipv4_of(name: str) -> str | None:
+    """The IPv4 address of interface ``name`` (an ioctl; nothing is sent)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+        try:
+            packed = fcntl.ioctl(s.fileno(), _SIOCGIFADDR, struct.pack("256s", name[:15].encode()))
+        except OSError:  # the interface has no IPv4 address, or is down
+            return None
+    return socket.inet_ntoa(packed[20:24])
+
+
+def lan_addresses() -> list[tuple[str, str]]:
+    """``(interface, IPv4 address)`` of this machine, loopback excluded, sorted.
+
+    Read from the interfaces themselves; no packet is sent anywhere.
+    """
+    found: set[tuple[str, str]] = set()
+    try:
+        names = [name for _, name in socket.if_nameindex()]
+    except OSError:
+        names = []
+    for name in names:
+        addr = _ipv4_of(name)
+        if addr is None:
+            continue
+        ip = ipaddress.ip_address(addr)
+        if ip.is_loopback or ip.is_unspecified:
+            continue
+        found.add((name, addr))
+    return sorted(found, key=lambda na: (ipaddress.ip_address(na[1]).is_link_local, na[0], na[1]))
+
+
+def websocket_origins(port: int, hosts: Iterable[str]) -> list[str]:
+    """The websocket origin allow-list: each host at ``port``, plus this machine's loopback.
+
+    No wildcard: a page served under any other host name or port is refused.
+    """
+    out: list[str] = []
+    for host in [LOOPBACK, "localhost", *hosts]:
+        host = host.strip().lower()
+        if not host or "*" in host:
+            continue
+        entry = f"[{host}]:{port}" if ":" in host else f"{host}:{port}"
+        if entry not in out:
+            out.append(entry)
+    return out
+
+
+def share_urls(port: int, addresses: Iterable[str]) -> list[str]:
+    """The page URL under each address."""
+    return [f"http://{a}:{port}/" for a in addresses]
+
+
+def _local_hostnames() -> list[str]:
+    """This machine's own name (and its ``.local`` form); read locally, no lookup."""
+    name = socket.gethostname().strip().lower()
+    if not name or name == "localhost":
+        return []
+    return [name] if "." in name else [name, f"{name}.local"]
+
+
+def _bind_address(share: bool, address: str | None, lan: list[tuple[str, str]]) -> str:
+    if not share:
+        if address not in (None, LOOPBACK, "localhost"):
+            raise ServeError(
+                f"address {address!r}: without --share the dashboard binds to {LOOPBACK} only"
+            )
+        return LOOPBACK
+    if address in (None, "", ALL_INTERFACES):
+        return ALL_INTERFACES
+    if address == "localhost":
+        return LOOPBACK
+    try:
+        ip = ipaddress.ip_address(address)
+    except ValueError:
+        raise ServeError(f"--address: {address!r} is not an IPv4 address") from None
+    if ip.version != 4:
+        raise ServeError(f"--address: {address!r}: only IPv4 addresses are served")
+    if ip.is_loopback or address in {a for _, a in lan}:
+        return str(ip)
+    known = ", ".join(a for _, a in lan) or "none found"
+    raise ServeError(
+        f"--address: {address!r} is not an address of this machine (its addresses: {known}); "
+        f"leave --address out to listen on all of them"
+    )
+
+
+def _free_port(address: str) -> int:
     with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind((LOOPBACK, 0))
+        s.bind((address, 0))
         return int(s.getsockname()[1])
+
+
+# ----------------------------------------------------------------------- login
+
+
+def safe_next(value: str | None) -> str:
+    """Where to go after logging in: a path on this server, else ``/``."""
+    if not value or not value.startswith("/") or value.startswith("//"):
+        return "/"
+    if "\\" in value or any(ord(c) < 32 for c in value):
+        return "/"
+    parts = urlsplit(value)
+    return "/" if parts.scheme or parts.netloc else value
+
+
+def render_login(message: str = "", *, refused: bool = False, next_url: str = "/") -> str:
+    """The login page with an escaped ``message``."""
+    page = LOGIN_TEMPLATE.read_text(encoding="utf-8")
+    values = {
+        "message": html.escape(message),
+        "message_class": "refused" if refused else "notice",
+        "next": html.escape(safe_next(next_url), quote=True),
+        "action": "",
+    }
+    for key, value in values.items():
+        page = page.replace("{{ " + key + " }}", value)
+    return page
+
+
+class _FailedLogins:
+    """Wrong passwords per client address; a burst locks that address out for a while."""
+
+    def __init__(self, limit: int = 10, window: float = 60.0):
+        self.limit, self.window = limit, window
+        self._lock = threading.Lock()
+        self._times: dict[str, list[float]] = {}
+
+    def locked(self, client: str) -> bool:
+        now = time.monotonic()
+        with self._lock:
+            recent = [t for t in self._times.get(client, []) if now - t < self.window]
+            self._times[client] = recent
+            return len(recent) >= self.limit
+
+    def record(self, client: str) -> None:
+        with self._lock:
+            self._times.setdefault(client, []).append(time.monotonic())
+
+    def clear(self, client: str) -> None:
+        with self._lock:
+            self._times.pop(client, None)
+
+
+@dataclass
+class _LoginConfig:
+    password: str
+    failures: _FailedLogins
+
+
+class LoginHandler(tornado.web.RequestHandler):
+    """``/login``: our page; the password is compared in constant time, never logged."""
+
+    config: _LoginConfig  # set on the subclass that serve() makes
+
+    def get(self) -> None:
+        self.write(render_login(next_url=self.get_argument("next", "/")))
+
+    async def post(self) -> None:
+        client = self.request.remote_ip or "?"
+        next_url = safe_next(self.get_body_argument("next", "/"))
+        if self.config.failures.locked(client):
+            self.set_status(429)
+            self.write(
+                render_login(
+                    "Too many wrong passwords from this computer; wait a minute and try again.",
+                    refused=True,
+                    next_url=next_url,
+                )
+            )
+            return
+        given = self.get_body_argument("password", "")
+        if password_matches(given, self.config.password):
+            self.config.failures.clear(client)
+            self.set_secure_cookie(
+                "user",
+                _USER,
+                expires_days=_COOKIE_DAYS,
+                httponly=True,
+                samesite="Lax",
+                path="/",
+            )
+            self.redirect(next_url)
+            return
+        self.config.failures.record(client)
+        log.warning("a wrong password was given from %s", client)  # never the password
+        await asyncio.sleep(0.5)  # slows guessing; other requests carry on meanwhile
+        self.set_status(401)
+        self.write(
+            render_login(
+                "That password is not right. Ask the person who started fringebench for it.",
+                refused=True,
+                next_url=next_url,
+            )
+        )
+
+
+class LogoutHandler(tornado.web.RequestHandler):
+    """``/logout``: forget the login cookie and show the login page again."""
+
+    def get(self) -> None:
+        self.clear_cookie("user", path="/")
+        self.clear_cookie("id_token", path="/")
+        self.write(render_login("You have signed out."))
+
+
+class _LoginFirst:
+    """Mixin: answer 403 before the handler runs when the request carries no login."""
+
+    async def prepare(self) -> None:
+        pending = super().prepare()  # type: ignore[misc]
+        if pending is not None:
+            await pending
+        if not self.current_user:  # type: ignore[attr-defined]
+            raise tornado.web.HTTPError(403, "log in first")
+
+
+def _guard_routes() -> None:
+    """Make the embedding script (``/autoload.js``) refuse requests without a login.
+
+    Its handler would otherwise fail on them (a traceback in the log, though no
+    app is served). The route table is the module-level one that Panel itself
+    sets up for every application.
+    """
+    from bokeh.server.urls import per_app_patterns
+
+    for i, (route, handler, *rest) in enumerate(per_app_patterns):
+        if route == "/autoload.js" and not issubclass(handler, _LoginFirst):
+            guarded = type("LoginFirstAutoloadJsHandler", (_LoginFirst, handler), {})
+            per_app_patterns[i] = (route, guarded, *rest)
+
+
+def _auth_provider(password: str) -> Any:
+    """Panel's basic-auth provider with our login and logout pages."""
+    from panel.auth import BasicAuthProvider
+
+    handler = type("SharedLoginHandler", (LoginHandler,), {})
+    handler.config = _LoginConfig(password, _FailedLogins())
+
+    class PasswordAuthProvider(BasicAuthProvider):
+        @property
+        def login_handler(self) -> type:
+            return handler
+
+        @property
+        def logout_handler(self) -> type:
+            return LogoutHandler
+
+    return PasswordAuthProvider(login_endpoint="/login", logout_endpoint="/logout")
+
+
+# -------------------------------------------------------------------- sessions
+
+
+class SessionLimit:
+    """At most ``maximum`` live dashboards; thread-safe."""
+
+    def __init__(self, maximum: int = DEFAULT_MAX_SESSIONS):
+        if maximum < 1:
+            raise ValueError("max_sessions: at least one session is needed")
+        self.maximum = int(maximum)
+        self._live = 0
+        self._lock = threading.Lock()
+
+    @property
+    def live(self) -> int:
+        with self._lock:
+            return self._live
+
+    def acquire(self) -> bool:
+        with self._lock:
+            if self._live >= self.maximum:
+                return False
+            self._live += 1
+            return True
+
+    def release(self) -> None:
+        with self._lock:
+            self._live = max(0, self._live - 1)
+
+
+def _full_page(maximum: int) -> Any:
+    import panel as pn
+
+    return pn.pane.HTML(
+        '<div id="fb-full" style="max-width:36em;margin:3em auto;padding:1.2em 1.5em;'
+        "border:1px solid #f5a623;border-radius:8px;background:#161b26;color:#e8ecf3;"
+        'font:15px/1.5 system-ui,sans-serif">'
+        '<h2 style="color:#f5a623;margin-top:0">fringebench is full</h2>'
+        f"<p>This machine already serves {maximum} sessions, the most it takes at once. "
+        "Close a tab you no longer use (its place frees within half a minute) and reload "
+        "this page, or follow a colleague's shared session instead.</p></div>",
+        sizing_mode="stretch_width",
+    )
+
+
+def _query_value(key: str) -> str | None:
+    import panel as pn
+
+    args = pn.state.session_args if pn.state.curdoc is not None else {}
+    values = args.get(key) if args else None
+    if not values:
+        return None
+    raw = values[0]
+    return raw.decode("utf-8", "replace") if isinstance(raw, bytes) else str(raw)
+
+
+def _remote_ip() -> str | None:
+    import panel as pn
+
+    ctx = pn.state.curdoc.session_context if pn.state.curdoc is not None else None
+    request = getattr(ctx, "request", None) if ctx is not None else None
+    ip = getattr(request, "remote_ip", None) if request is not None else None
+    return str(ip) if ip else None
+
+
+def _session_factory(
+    text: str, limit: SessionLimit, owner_addresses: frozenset[str] = frozenset()
+) -> Callable[[], Any]:
+    """A function that builds one session's dashboard (or the notice that the server is full).
+
+    A session whose browser runs on one of ``owner_addresses`` (this machine, on
+    a server shared on the network) is the host's own and goes first in the queues.
+    """
+    import panel as pn
+
+    from server import sharing
+    from server.app import create_app, list_presets
+    from server.dashboard import Dashboard
+
+    def session() -> Any:
+        doc = pn.state.curdoc
+        if not limit.acquire():
+            return _full_page(limit.maximum)
+        held = [True]
+
+        def release(_context: Any) -> None:  # Bokeh passes the session context
+            if held[0]:
+                held[0] = False
+                limit.release()
+
+        if doc is not None and doc.session_context is not None:
+            doc.on_session_destroyed(release)
+        try:
+            token = _query_value(sharing.FOLLOW_QUERY_KEY)
+            pub = sharing.REGISTRY.get(token) if token else None
+            state = pub.state() if pub is not None else None
+            if pub is not None:
+                start = state.setup if state is not None and state.setup is not None else None
+                dash = Dashboard(start or snapshot.loads(text), presets=list_presets())
+            elif token:
+                note = (
+                    "This follow link is not shared (any more); "
+                    "here is your own dashboard on the starting setup."
+                )
+                dash = Dashboard(snapshot.loads(text), presets=list_presets(), messages=[note])
+            else:
+                dash = create_app(snapshot.loads(text))  # each session gets its own setup
+            owner = bool(owner_addresses) and _remote_ip() in owner_addresses
+            share = sharing.SessionSharing(dash, sharing.REGISTRY, doc=doc, owner=owner)
+            if pub is not None:
+                try:
+                    share.follow(pub)
+                except LookupError:
+                    dash.notify("warning", "That session stopped being shared just now.")
+            return dash
+        except Exception:
+            release(None)
+            raise
+
+    return session
+
+
+# ----------------------------------------------------------------------- serve
 
 
 def serve(
@@ -37,6 +541,10 @@ def serve(
     password: str | None = None,
     password_file: str | None = None,
     address: str | None = None,
+    max_sessions: int = DEFAULT_MAX_SESSIONS,
+    compute_workers: int | None = None,
+    memory_budget: int | None = None,
+    out: Any = None,
     **kw: Any,
 ) -> None:
     """Serve the dashboard until interrupted (Ctrl+C).
@@ -44,38 +552,58 @@ def serve(
     Parameters
     ----------
     port
-        TCP port on 127.0.0.1 (0 picks a free one).
+        TCP port (0 picks a free one).
     preset
         A preset name (``presets/NAME.json``) or a snapshot file; the default
         preset when None.
     open
         Open the page in the local web browser.
-    share, password, password_file, address
-        Sharing on the lab network; not available in this version.
+    share
+        Listen on the lab network behind a password; otherwise on 127.0.0.1 only.
+    password, password_file
+        The sharing password, or a file whose first line is it; generated and
+        printed once when neither is given.
+    address
+        With sharing, one address of this machine to listen on (all by default).
+    max_sessions
+        Dashboards served at once.
+    compute_workers, memory_budget
+        Lanes and working-memory budget (bytes) of the compute queue.
+    out
+        Where the start-up lines go (standard output by default).
     **kw
         Further options for ``panel.serve``.
 
     Raises
     ------
     ServeError
-        For sharing, a non-loopback address, a bad port, a bad preset or a
-        port in use.
+        For a password without sharing, a bad password or password file, a
+        foreign address, a bad port, a bad preset or a port in use.
     """
-    if share or password is not None or password_file is not None:
-        raise ServeError(
-            "sharing arrives in a later version; serve without --share to use the "
-            "dashboard on this machine"
-        )
-    if address not in (None, LOOPBACK, "localhost"):
-        raise ServeError(
-            f"address {address!r}: without sharing the dashboard binds to {LOOPBACK} only"
-        )
+    out = out or sys.stdout
+    if not share and (password is not None or password_file is not None):
+        option = "--password" if password is not None else "--password-file"
+        raise ServeError(f"{option} applies only with --share")
     if isinstance(port, bool) or not isinstance(port, int) or not 0 <= port <= 65535:
         raise ServeError(f"port {port!r}: expected a whole number from 0 to 65535")
+    if isinstance(max_sessions, bool) or not isinstance(max_sessions, int) or max_sessions < 1:
+        raise ServeError(f"max_sessions {max_sessions!r}: expected a whole number of at least 1")
+    lan = lan_addresses() if share else []
+    bind = _bind_address(share, address, lan)
+    secret: str | None = None
+    generated = False
+    if share:
+        if os.environ.get("BOKEH_ALLOW_WS_ORIGIN"):
+            raise ServeError(
+                "BOKEH_ALLOW_WS_ORIGIN is set and would replace the websocket origin "
+                "allow-list of a shared session; unset it to share"
+            )
+        secret, generated = resolve_password(password, password_file)
 
     import panel as pn
 
-    from server.app import PresetError, create_app, load_preset
+    from server import sharing
+    from server.app import PresetError, load_preset
 
     try:
         start = load_preset(preset)
@@ -83,32 +611,92 @@ def serve(
         raise ServeError(str(exc)) from None
     text = snapshot.dumps(start)
 
-    def session() -> Any:
-        return create_app(snapshot.loads(text))  # each session gets its own setup
+    try:
+        sharing.COMPUTE_QUEUE.configure(workers=compute_workers, memory_budget=memory_budget)
+    except (RuntimeError, ValueError) as exc:
+        raise ServeError(str(exc)) from None
 
-    port = port or _free_port()
-    origins = [f"{LOOPBACK}:{port}", f"localhost:{port}"]
+    port = port or _free_port(bind)
+    if bind == ALL_INTERFACES:
+        public = [a for _, a in lan]
+        hosts = public + _local_hostnames()
+    elif bind == LOOPBACK:
+        public, hosts = [], []
+    else:
+        public = [bind]
+        hosts = [bind]
+    origins = websocket_origins(port, hosts)
+    # On the network, this machine's own browser is the host's; on loopback everyone is.
+    owners = frozenset() if bind == LOOPBACK else frozenset({LOOPBACK, "::1", *(a for _, a in lan)})
+    sharing.REGISTRY.public_urls = share_urls(port, public)
+    options: dict[str, Any] = {
+        "websocket_max_message_size": MAX_MESSAGE_BYTES,
+        "http_server_kwargs": {"max_body_size": MAX_BODY_BYTES},
+        "num_procs": 1,
+    }
+    if share:
+        options["cookie_secret"] = secrets.token_hex(32)  # new at every start
+        options["auth_provider"] = _auth_provider(secret or "")
+        _guard_routes()
+    options.update(kw)
     try:
         server = pn.serve(
-            {"/": session},
+            {"/": _session_factory(text, SessionLimit(max_sessions), owners)},
             port=port,
-            address=LOOPBACK,
+            address=bind,
             websocket_origin=origins,
             show=False,
             start=False,
             title="fringebench",
             verbose=False,
-            **kw,
+            **options,
         )
     except OSError as exc:
         if exc.errno == errno.EADDRINUSE:
             raise ServeError(f"port {port} is in use; choose another with --port") from None
-        raise ServeError(f"cannot listen on {LOOPBACK}:{port} ({exc.strerror or exc})") from None
-    url = f"http://{LOOPBACK}:{port}/"
-    print(f"fringebench is serving at {url}", flush=True)
-    print("Press Ctrl+C to stop.", flush=True)
+        raise ServeError(f"cannot listen on {bind}:{port} ({exc.strerror or exc})") from None
+    url = (
+        f"http://{LOOPBACK}:{port}/"
+        if bind in (ALL_INTERFACES, LOOPBACK)
+        else share_urls(port, [bind])[0]
+    )
+
+    def say(line: str = "") -> None:
+        print(line, file=out, flush=True)
+
+    if share:
+        if public:
+            say(f"fringebench is shared on the lab network (port {port}). Colleagues can open:")
+            names = {a: n for n, a in lan}
+            for a in public:
+                say(f"  {share_urls(port, [a])[0]}   ({names.get(a, 'this address')})")
+        elif bind == LOOPBACK:
+            say(f"fringebench is shared on {LOOPBACK} only: reachable from this machine alone.")
+        else:
+            say("fringebench is shared, but this machine has no network address yet;")
+            say("colleagues can open it once it has one.")
+        if bind in (ALL_INTERFACES, LOOPBACK):
+            say(f"On this machine: {url}")
+        if generated:
+            say(f"Password for this start (shown once): {secret}")
+        else:
+            say(
+                "Password: the one given with "
+                + ("--password." if password else "--password-file.")
+            )
+    else:
+        say(f"fringebench is serving at {url}")
+    say("Press Ctrl+C to stop.")
+    if share and password is not None:
+        print(
+            "note: a password on the command line can be seen by other users of this "
+            "machine; --password-file keeps it private",
+            file=sys.stderr,
+            flush=True,
+        )
     if open:
         server.io_loop.add_callback(lambda: webbrowser.open(url))
+    sharing.APPLY_QUEUE.attach(server.io_loop)
     server.start()
     try:
         server.io_loop.start()
