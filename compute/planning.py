@@ -569,8 +569,10 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
         inv = abs(1.0 / g.z - 1.0 / g.f)
         nf_eff = ph["half"] ** 2 * inv / g.lam
         v = _verdict(nf_eff, (0.1, 1.0)) if far else "ok"
-        place = "the lens's far field (its focal plane)" if nf_eff < 0.1 else (
-            "the lens's Fresnel zone, out of focus"
+        place = (
+            "the lens's far field (its focal plane)"
+            if nf_eff < 0.1
+            else ("the lens's Fresnel zone, out of focus")
         )
         s = (
             f"with the lens the effective Fresnel number a²|1/z − 1/f|/λ is {nf_eff:.3g}: "

@@ -160,6 +160,12 @@ class Dashboard(pn.viewable.Viewer):
         self.priority: int = sharing.PRIORITY_OTHER
         self._preview_shown: tuple | None = None
         self.messages: list[tuple[str, str]] = []  # (level, text), newest last
+        # Extension panels (their own modules) plug in here; see _build_widgets.
+        self.result_hooks: list[Callable[[Setup, Any], None]] = []
+        self.setup_hooks: list[Callable[[Setup], None]] = []
+        self.view_hooks: list[Callable[[dict], None]] = []
+        self.view_extra: dict[str, Any] = {}
+        self.state_extra: dict[str, str] = {}
         self._plots_built = False
         self._applying_view = False
         self._url_warned = False
@@ -360,8 +366,24 @@ class Dashboard(pn.viewable.Viewer):
         if view is not None:
             self._apply_view(view)
         self._refresh_controls()
+        self._run_setup_hooks()
         self._mirror_url()
         self._request_compute()
+
+    def _run_setup_hooks(self) -> None:
+        for hook in self.setup_hooks:
+            try:
+                hook(self.setup)
+            except Exception:  # a panel's failure must not cost the session its setup
+                log.exception("a setup hook failed")
+
+    def _run_result_hooks(self) -> None:
+        setup = self._result_setup if self._result_setup is not None else self.setup
+        for hook in self.result_hooks:
+            try:
+                hook(setup, self.result)
+            except Exception:
+                log.exception("a result hook failed")
 
     # ----------------------------------------------------------- import, export
 
@@ -399,7 +421,9 @@ class Dashboard(pn.viewable.Viewer):
 
     def view_state(self) -> dict[str, Any]:
         """The display settings as the snapshot's ``view`` section."""
-        return {"scale": self.scale, "cmap": self.cmap, "cut": [self.cut_x, self.cut_y]}
+        state = {"scale": self.scale, "cmap": self.cmap, "cut": [self.cut_x, self.cut_y]}
+        state.update(self.view_extra)
+        return state
 
     def _apply_view(self, view: dict) -> None:
         self._applying_view = True
@@ -417,6 +441,8 @@ class Dashboard(pn.viewable.Viewer):
                 self.cut_x, self.cut_y = float(cut[0]), float(cut[1])
             else:
                 self.cut_x, self.cut_y = self.setup.screen.x, self.setup.screen.y
+            for hook in self.view_hooks:
+                hook(view)
         finally:
             self._applying_view = False
 
@@ -640,6 +666,13 @@ class Dashboard(pn.viewable.Viewer):
         self.overlay_note = _html("", css_classes=["fb-overlay-note"], sizing_mode="stretch_width")
         # Follow mode hook: server.sharing puts the share controls in this row.
         self.share_bar = pn.Row(css_classes=["fb-share-bar"], margin=(4, 10))
+        # Slots of the extension panels (see server/*_view.py, *_panel.py).
+        self.explore_tabs = pn.Tabs(sizing_mode="stretch_width", css_classes=["fb-explore"])
+        self.camera_slot = pn.Column(visible=False, css_classes=["fb-camera-slot"])
+        self.extra_source_controls = pn.Column(sizing_mode="stretch_width")
+        self.camera_controls = pn.Column(sizing_mode="stretch_width")
+        # --- issue 7 panels
+        # --- issue 8 panels
 
     def _elements_frame(self) -> pd.DataFrame:
         rows = []
@@ -774,6 +807,7 @@ class Dashboard(pn.viewable.Viewer):
         numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
         self.numbers_pane.object = views.numbers_card(numbers, meta, cut_label=self._closed.label)
         self.validity_pane.object = views.validity_card([v.to_dict() for v in r.validity])
+        self._run_result_hooks()
         self._update_state()
 
     def _send_aperture(self, preview: tuple) -> None:
@@ -882,6 +916,7 @@ class Dashboard(pn.viewable.Viewer):
                     "cached": int(bool(getattr(r, "cached", False))),
                 }
             )
+        attrs.update(self.state_extra)
         body = " ".join(f'data-{k}="{html.escape(str(v))}"' for k, v in attrs.items())
         self.state_pane.object = f'<div id="fb-state" class="fb-state-data" {body}></div>'
         if self.busy:
@@ -921,6 +956,7 @@ class Dashboard(pn.viewable.Viewer):
                 self._wanted = self.setup
         self._apply_view(view)
         self._refresh_controls()
+        self._run_setup_hooks()
         if result is not None and result is not self.result:
             key = _aperture_key(self.setup)
             if preview is not None and key != self._shown_aperture:
@@ -982,9 +1018,10 @@ class Dashboard(pn.viewable.Viewer):
         )
         sidebar = pn.Column(
             snapshot_card,
-            self._card("Source", self.controls.source_panel()),
+            self._card("Source", self.controls.source_panel(), self.extra_source_controls),
             aperture_card,
             self._card("Screen", self.controls.screen_panel()),
+            self._card("Camera", self.camera_controls, collapsed=True, css="fb-camera-card"),
             self._card("Numerics", self.controls.numerics_panel(), collapsed=True),
             width=380,
             css_classes=["fb-sidebar"],
@@ -1000,7 +1037,10 @@ class Dashboard(pn.viewable.Viewer):
         main = pn.Column(
             toolbar,
             pn.Row(
-                self.map_pane, pn.Column(self.numbers_pane, width=330), sizing_mode="stretch_width"
+                self.map_pane,
+                self.camera_slot,
+                pn.Column(self.numbers_pane, width=330),
+                sizing_mode="stretch_width",
             ),
             self.overlay_note,
             pn.Row(self.cut_x_pane, self.cut_y_pane, sizing_mode="stretch_width"),
@@ -1010,6 +1050,7 @@ class Dashboard(pn.viewable.Viewer):
                 pn.Column(self.validity_pane, width=460),
                 sizing_mode="stretch_width",
             ),
+            self.explore_tabs,
             self.state_pane,
             sizing_mode="stretch_width",
             css_classes=["fb-main"],
