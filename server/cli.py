@@ -260,6 +260,7 @@ def _cmd_serve(args: argparse.Namespace) -> int:
         "password": args.password,
         "password_file": args.password_file,
         "address": args.address,
+        "max_sessions": args.max_sessions,
     }
     try:
         serving.serve(**options)
@@ -284,6 +285,16 @@ def _port(text: str) -> int:
         raise argparse.ArgumentTypeError(f"expected a port number, got {text!r}") from None
     if not 0 <= value <= 65535:
         raise argparse.ArgumentTypeError(f"expected a port number 0 to 65535, got {value}")
+    return value
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected at least 1, got {value}")
     return value
 
 
@@ -359,6 +370,13 @@ def build_parser() -> argparse.ArgumentParser:
     secret.add_argument("--password", help="password for a shared session")
     secret.add_argument("--password-file", metavar="FILE", help="read the password from FILE")
     serve.add_argument("--address", help="address to bind (default 127.0.0.1)")
+    serve.add_argument(
+        "--max-sessions",
+        type=_positive_int,
+        default=16,  # serving.DEFAULT_MAX_SESSIONS (serving is imported by serve alone)
+        metavar="N",
+        help="browser sessions served at once (default 16); a further one gets a notice",
+    )
     serve.set_defaults(func=_cmd_serve)
 
     bench = sub.add_parser(

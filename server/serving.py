@@ -67,9 +67,12 @@ MAX_PASSWORD_CHARS = 512
 MAX_PASSWORD_FILE_BYTES = 4096
 #: Sessions (browser tabs) served at once; a further one gets a short notice.
 DEFAULT_MAX_SESSIONS = 16
-#: Largest websocket message: a 5 MB snapshot or a 4 MB PNG travels base64-encoded
-#: (4/3 larger) inside one message; anything far beyond closes that connection only.
-MAX_MESSAGE_BYTES = 8 * 1024 * 1024
+#: Largest websocket message. An upload travels base64-encoded (4/3 larger) inside one
+#: message; the app refuses files over 5 MB with a message naming the size, so this
+#: limit sits well above that (files up to about 24 MB reach the app and get that
+#: message) while still bounding what one browser can make the server hold. A larger
+#: file closes that browser's connection only; its setup survives in the page address.
+MAX_MESSAGE_BYTES = 32 * 1024 * 1024
 #: Largest HTTP request body (the login form is a few hundred bytes).
 MAX_BODY_BYTES = 64 * 1024
 LOGIN_TEMPLATE = Path(__file__).resolve().parent / "assets" / "login.html"
@@ -697,6 +700,9 @@ def serve(
     if open:
         server.io_loop.add_callback(lambda: webbrowser.open(url))
     sharing.APPLY_QUEUE.attach(server.io_loop)
+    from compute import fft
+
+    fft.auto_plan(True)  # a long-running server: measure FFT plans for recurring shapes
     server.start()
     try:
         server.io_loop.start()

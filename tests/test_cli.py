@@ -395,13 +395,14 @@ def test_serve_passes_the_defaults(fake_serving):
             "password": None,
             "password_file": None,
             "address": None,
+            "max_sessions": 16,
         }
     ]
 
 
 def test_serve_passes_every_option(fake_serving):
     args = ["serve", "--port", "8123", "--preset", "knife-edge", "--open", "--share"]
-    args += ["--password-file", "pw.txt", "--address", "0.0.0.0"]
+    args += ["--password-file", "pw.txt", "--address", "0.0.0.0", "--max-sessions", "4"]
     assert cli.main(args) == 0
     assert fake_serving[-1] == {
         "port": 8123,
@@ -411,7 +412,23 @@ def test_serve_passes_every_option(fake_serving):
         "password": None,
         "password_file": "pw.txt",
         "address": "0.0.0.0",
+        "max_sessions": 4,
     }
+
+
+def test_serve_default_session_limit_is_the_servers():
+    from server import serving
+
+    parser = cli.build_parser()
+    assert parser.parse_args(["serve"]).max_sessions == serving.DEFAULT_MAX_SESSIONS
+
+
+@pytest.mark.parametrize("value", ["0", "-3", "many"])
+def test_serve_max_sessions_must_be_a_positive_whole_number(fake_serving, capsys, value):
+    assert cli.main(["serve", "--max-sessions", value]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: argument --max-sessions")
+    assert fake_serving == []
 
 
 def test_serve_password_options_exclude_each_other(fake_serving, capsys):
