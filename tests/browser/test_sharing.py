@@ -191,12 +191,26 @@ def test_an_unknown_follow_link_opens_an_own_dashboard(contexts, shared_url):
     pg.locator(".notyf__message", has_text="follow link").first.wait_for(state="visible")
 
 
+def test_a_large_upload_is_refused_by_name_and_size_and_changes_nothing(
+    contexts, shared_url, tmp_path
+):
+    pg = contexts()
+    st = log_in(pg, shared_url)
+    big = tmp_path / "large.json"
+    big.write_bytes(b"{" + b" " * (12 * 1024 * 1024) + b"}")  # over 5 MB, under the message cap
+    pg.locator(".fb-import input[type=file]").set_input_files(str(big))
+    msg = pg.locator(".notyf__message", has_text="large.json").first
+    msg.wait_for(state="visible")
+    assert "a snapshot is at most 5 MB" in msg.inner_text()
+    assert wait_state(pg, lambda s: s["busy"] == "0")["key"] == st["key"]
+
+
 def test_an_oversized_upload_costs_only_its_own_connection(contexts, shared_url, tmp_path):
     sender, other = contexts(), contexts()
     log_in(sender, shared_url)
     st = log_in(other, shared_url)
     big = tmp_path / "huge.json"
-    big.write_bytes(b"{" + b" " * (12 * 1024 * 1024) + b"}")  # over the 8 MiB message cap
+    big.write_bytes(b"{" + b" " * (40 * 1024 * 1024) + b"}")  # base64: over the 32 MiB cap
     sender.locator(".fb-import input[type=file]").set_input_files(str(big))
     sender.locator(".notyf__message", has_text="connection").first.wait_for(state="visible")
     set_number(other, "fb-distance", 1.1)
