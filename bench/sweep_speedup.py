@@ -8,7 +8,8 @@ ways in one run on this machine:
 * serial, as ``fringebench sweep`` runs by default (and, to show how much of the
   machine that already uses, serial with one FFT thread);
 * ``--workers 2``: a local cluster of two single-threaded processes, its start
-  and shutdown included, as a user waits for it;
+  and shutdown included, as a user waits for it, run from a fresh process as the
+  command line runs it (with no other threads, the workers start by fork);
 * on an already running two-worker cluster (``--scheduler``), which leaves only
   the computing and the traffic.
 
@@ -24,7 +25,9 @@ with every run. A benchmark, not a test: nothing here passes or fails.
 from __future__ import annotations
 
 import argparse
+import json
 import os
+import subprocess
 import sys
 import time
 from pathlib import Path
@@ -52,11 +55,47 @@ def _one_fft_thread(plan: sweep.SweepPlan) -> list:
         _fft.WORKERS = saved
 
 
-def bench_one(plan: sweep.SweepPlan, label: str, repeat: int, client, address: str) -> None:
+_FRESH = """
+import json, sys, time
+sys.path.insert(0, {root!r})
+from compute import snapshot, sweep
+setup = snapshot.load({preset!r})
+setup.numerics.precision = {precision!r}
+plan = sweep.plan_sweep(setup, [{vary!r}])
+t0 = time.perf_counter()
+rows = sweep.run_plan(plan, workers=2)
+print(json.dumps({{"seconds": time.perf_counter() - t0, "rows": rows}}))
+"""
+
+
+def _workers_in_fresh_process(precision: str, vary: str) -> tuple[float, list]:
+    """``--workers 2`` as the command line runs it: from a process with no other threads.
+
+    Timed inside that process from the call on, like the other ways (the interpreter's
+    own start is left out of every way).
+    """
+    code = _FRESH.format(root=str(ROOT), preset=str(PRESET), precision=precision, vary=vary)
+    done = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, check=True, cwd=ROOT
+    )
+    report = json.loads(done.stdout.strip().splitlines()[-1])
+    return report["seconds"], report["rows"]
+
+
+def bench_one(
+    plan: sweep.SweepPlan, label: str, repeat: int, client, address: str, vary: str
+) -> None:
+    fresh: dict[str, float] = {}
+
+    def fresh_workers() -> list:
+        seconds, rows = _workers_in_fresh_process(label, vary)
+        fresh["seconds"] = seconds
+        return rows
+
     ways = {
         "serial": lambda: sweep.run_plan(plan),
         "serial, one FFT thread": lambda: _one_fft_thread(plan),
-        "--workers 2 (start included)": lambda: sweep.run_plan(plan, workers=2),
+        "--workers 2 (start included)": fresh_workers,
         "2 running workers": lambda: sweep.run_plan(plan, scheduler=address),
     }
     times: dict[str, list[float]] = {name: [] for name in ways}
@@ -68,10 +107,10 @@ def bench_one(plan: sweep.SweepPlan, label: str, repeat: int, client, address: s
             load = os.getloadavg()[0]
             t0 = time.perf_counter()
             rows = run()
-            times[name].append(time.perf_counter() - t0)
+            times[name].append(fresh.pop("seconds", time.perf_counter() - t0))
             if reference is None:
-                reference = rows
-            elif rows != reference:
+                reference = json.loads(json.dumps(rows))  # as the fresh process reports them
+            elif json.loads(json.dumps(rows)) != reference:
                 raise SystemExit(f"{label}, {name}: the rows differ from the first run")
             print(f"{label}  round {r + 1}  {name:<30} {times[name][-1]:7.2f} s  (load {load:.2f})")
     best = {name: min(t) for name, t in times.items()}
@@ -106,10 +145,11 @@ def main() -> int:
         for precision in chosen:
             setup = snapshot.load(PRESET)
             setup.numerics.precision = precision
-            plan = sweep.plan_sweep(setup, [f"screen.distance=0.005:0.03:{args.points}"])
+            vary = f"screen.distance=0.005:0.03:{args.points}"
+            plan = sweep.plan_sweep(setup, [vary])
             # Warm up the running workers: imports, and one FFT thread each.
             client.gather(client.map(sweep.compute_point, plan.docs[:2], pure=False, fft_threads=1))
-            bench_one(plan, precision, args.repeat, client, address)
+            bench_one(plan, precision, args.repeat, client, address, vary)
     return 0
 
 

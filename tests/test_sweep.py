@@ -12,6 +12,7 @@ import signal
 import socket
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -389,6 +390,25 @@ def test_serial_local_workers_and_a_scheduler_give_identical_csvs(snap, tmp_path
         assert float(text_row["peak_irradiance"]) == row["peak_irradiance"]
         assert float(text_row["fresnel_number"]) == row["fresnel_number"]
         assert text_row["method"] == row["method"]
+
+
+def test_local_workers_fork_only_from_a_process_without_other_threads():
+    # A fork copies only the calling thread and any lock another thread holds
+    # (POSIX fork(2), common practice, no source), so a threaded process spawns.
+    code = "from compute import sweep; print(sweep._worker_start_method())"
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    alone = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True
+    )
+    assert alone.stdout.strip() == "fork"
+    release = threading.Event()
+    other = threading.Thread(target=release.wait)
+    other.start()
+    try:
+        assert sweep._worker_start_method() == "spawn"
+    finally:
+        release.set()
+        other.join()
 
 
 def test_cancel_on_local_workers_shuts_them_down():
