@@ -37,7 +37,7 @@ from compute import engine, snapshot
 from compute.errors import SetupError
 from compute.model import ELEMENT_TYPES, Element, Setup
 from compute.pngdata import PngDataError, decode_png_data_url
-from server import controls, sharing, urlstate, views
+from server import alongz_view, controls, sharing, sweep_panel, urlstate, views
 from server.controls import SHAPE_LABELS, ElementEditor, SetupControls, to_display
 
 __all__ = ["MAX_UPLOAD_BYTES", "Dashboard"]
@@ -63,6 +63,11 @@ def _stylesheet() -> str:
 
 
 _CSS = _stylesheet()
+# The dark theme leaves the chosen tab's title light on light; ours reads on the dark page.
+_TABS_CSS = """
+:host .bk-tab { color: #8892a6; background-color: transparent; border-color: #2a3244; }
+:host .bk-tab.bk-active { color: #f5a623; background-color: #161b26; border-color: #f5a623; }
+"""
 
 
 def _html(text: str, **kw: Any) -> pn.pane.HTML:
@@ -667,11 +672,15 @@ class Dashboard(pn.viewable.Viewer):
         # Follow mode hook: server.sharing puts the share controls in this row.
         self.share_bar = pn.Row(css_classes=["fb-share-bar"], margin=(4, 10))
         # Slots of the extension panels (see server/*_view.py, *_panel.py).
-        self.explore_tabs = pn.Tabs(sizing_mode="stretch_width", css_classes=["fb-explore"])
+        self.explore_tabs = pn.Tabs(
+            sizing_mode="stretch_width", css_classes=["fb-explore"], stylesheets=[_TABS_CSS]
+        )
         self.camera_slot = pn.Column(visible=False, css_classes=["fb-camera-slot"])
         self.extra_source_controls = pn.Column(sizing_mode="stretch_width")
         self.camera_controls = pn.Column(sizing_mode="stretch_width")
-        # --- issue 7 panels
+        # --- issue 7 panels: the regime explorer's tabs
+        self.alongz_view = alongz_view.AlongZView(self)
+        self.sweep_panel = sweep_panel.SweepPanel(self)
         # --- issue 8 panels
 
     def _elements_frame(self) -> pd.DataFrame:

@@ -48,6 +48,7 @@ __all__ = [
     "APPLY_QUEUE",
     "COMPUTE_QUEUE",
     "FOLLOW_QUERY_KEY",
+    "PRIORITY_BACKGROUND",
     "PRIORITY_FOLLOWER",
     "PRIORITY_HOST",
     "PRIORITY_OTHER",
@@ -80,6 +81,9 @@ _TOKEN = re.compile(r"^[A-Za-z0-9_-]{16,64}$")
 PRIORITY_HOST = 0
 PRIORITY_FOLLOWER = 1
 PRIORITY_OTHER = 2
+#: Added to a session's priority for work it did not wait for at the screen (the
+#: along-z image, sweep points): every session's screen result goes before it.
+PRIORITY_BACKGROUND = 3
 
 
 # ------------------------------------------------------------------ compute queue
@@ -193,17 +197,24 @@ class ComputeQueue:
     # -------------------------------------------------------------- public
 
     def submit(
-        self, setup: Setup, fn: Callable[[], Any], *, priority: int = PRIORITY_OTHER
+        self,
+        setup: Setup,
+        fn: Callable[[], Any],
+        *,
+        priority: int = PRIORITY_OTHER,
+        estimate: Callable[[], int] | None = None,
     ) -> Future:
         """Queue ``fn`` (which computes ``setup``) and return its future.
 
         Jobs start by ``priority`` (lower first), then in arrival order. The
         future fails at once with a :class:`SetupError` when the setup cannot
-        be planned or needs more memory than the whole budget.
+        be planned or needs more memory than the whole budget. ``estimate``
+        gives the job's working memory in bytes when it is not the screen
+        computation of ``setup`` (the queue's own estimate).
         """
         fut: Future = Future()
         try:
-            nbytes = int(self._estimate(setup))
+            nbytes = int(estimate() if estimate is not None else self._estimate(setup))
         except Exception as exc:  # the planner's refusal, shown as the job's failure
             fut.set_exception(exc)
             return fut

@@ -564,6 +564,40 @@ def test_a_dashboard_on_the_queue_computes_and_a_huge_setup_is_refused(monkeypat
     q.close()
 
 
+def test_a_job_with_its_own_memory_estimate_is_admitted_by_it():
+    q = sharing.ComputeQueue(workers=1, memory_budget=8 * 1024**2)
+    setup = load_preset(None)
+    big = q.submit(setup, lambda: "ran", estimate=lambda: 64 * 1024**2)
+    assert "all sessions together" in str(big.exception(timeout=5))
+    small = q.submit(setup, lambda: "ran", estimate=lambda: 1024)
+    assert small.result(timeout=30) == "ran"
+
+    def refuse() -> int:
+        raise SetupError("aperture", "unbounded")
+
+    refused = q.submit(setup, lambda: "ran", estimate=refuse)
+    assert str(refused.exception(timeout=5)) == "aperture: unbounded"
+    q.close()
+
+
+def test_background_work_waits_for_every_screen_result():
+    q = sharing.ComputeQueue(workers=1)
+    setup = load_preset(None)
+    gate, order = threading.Event(), []
+    first = q.submit(setup, gate.wait, priority=sharing.PRIORITY_HOST)  # holds the lane
+    late = q.submit(
+        setup,
+        lambda: order.append("host background"),
+        priority=sharing.PRIORITY_HOST + sharing.PRIORITY_BACKGROUND,
+    )
+    other = q.submit(setup, lambda: order.append("other screen"), priority=sharing.PRIORITY_OTHER)
+    gate.set()
+    for f in (first, late, other):
+        f.result(timeout=30)
+    assert order == ["other screen", "host background"]
+    q.close()
+
+
 # ----------------------------------------------------- a real server, loopback
 
 
