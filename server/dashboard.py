@@ -552,9 +552,15 @@ class Dashboard(pn.viewable.Viewer):
             self.result = result
             self.results_applied += 1
             self._show_result()
-        self.busy = False
-        self._set_busy_view(False)
-        self._idle.set()
+        with self._lock:
+            # A request may have started a new job since this one was marked done;
+            # then the session is still busy and waiting callers keep waiting.
+            idle = not self._running
+            if idle:
+                self._idle.set()
+        if idle:
+            self.busy = False
+            self._set_busy_view(False)
 
     def _cut_inside(self, result: Any) -> bool:
         return bool(
