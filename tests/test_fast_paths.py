@@ -333,9 +333,13 @@ def test_benchmark_emits_the_row_schema():
     cases = {(r["case"], r["method"]) for r in rows}
     for m in benchmark.METHODS:
         assert ("propagation", m) in cases
-    assert {"cached_repeat", "render_default_preset", "camera_window", "peak_memory"} <= {
-        c for c, _ in cases
-    }
+    assert {
+        "cached_repeat",
+        "render_default_preset",
+        "broadband_render",
+        "camera_window",
+        "peak_memory",
+    } <= {c for c, _ in cases}
     for r in rows:
         if r["case"] == "propagation":
             assert r["fft_pair_s"] > 0
@@ -348,5 +352,8 @@ def test_benchmark_emits_the_row_schema():
             assert r["max_rel_diff"] < 1e-4  # both routes compute the same Fourier sum
         if r["case"] == "peak_memory":
             assert r["peak_bytes"] >= r["floor_bytes"]
+        if r["case"] == "broadband_render":
+            assert r["wavelengths"] == 16 and r["monochromatic_s"] > 0
+            assert r["ratio_to_monochromatic"] == pytest.approx(r["ours_s"] / r["monochromatic_s"])
     text = benchmark.table(rows)
     assert text.count("\n") == len(rows) + 1
