@@ -36,7 +36,9 @@ from pathlib import Path
 from typing import Any
 from urllib.parse import urlsplit
 
+import tornado.iostream
 import tornado.web
+import tornado.websocket
 
 from compute import snapshot
 
@@ -535,6 +537,21 @@ def _session_factory(
 # ----------------------------------------------------------------------- serve
 
 
+def _closed_connections_are_not_errors(loop: asyncio.AbstractEventLoop, context: dict) -> None:
+    """Event-loop exception handler: a browser that closed mid-write is routine.
+
+    Closing a tab while the server sends it an update leaves a finished write task
+    whose WebSocketClosedError nobody reads; asyncio would log it with a traceback.
+    Everything else goes to the default handler.
+    """
+    exc = context.get("exception")
+    closed = (tornado.websocket.WebSocketClosedError, tornado.iostream.StreamClosedError)
+    if isinstance(exc, closed):
+        log.debug("a browser closed its connection while an update was being sent")
+        return
+    loop.default_exception_handler(context)
+
+
 def serve(
     *,
     port: int = 5006,
@@ -700,6 +717,7 @@ def serve(
     if open:
         server.io_loop.add_callback(lambda: webbrowser.open(url))
     sharing.APPLY_QUEUE.attach(server.io_loop)
+    server.io_loop.asyncio_loop.set_exception_handler(_closed_connections_are_not_errors)
     from compute import fft
 
     fft.auto_plan(True)  # a long-running server: measure FFT plans for recurring shapes

@@ -581,7 +581,7 @@ def test_a_job_with_its_own_memory_estimate_is_admitted_by_it():
 
 
 def test_background_work_waits_for_every_screen_result():
-    q = sharing.ComputeQueue(workers=1)
+    q = sharing.ComputeQueue(workers=1, spare_after=60)  # no spare lane in this test
     setup = load_preset(None)
     gate, order = threading.Event(), []
     first = q.submit(setup, gate.wait, priority=sharing.PRIORITY_HOST)  # holds the lane
@@ -776,3 +776,22 @@ def test_share_listens_on_all_interfaces_and_prints_a_generated_password_once():
     assert len(found) == 1 and log.count(found[0]) == 1
     for _name, addr in serving.lan_addresses():
         assert f"http://{addr}:{port}/" in log  # printed, never connected to
+
+
+def test_a_browser_closing_mid_write_is_not_logged_as_an_error():
+    import tornado.iostream
+    import tornado.websocket
+
+    seen = []
+
+    class Loop:
+        def default_exception_handler(self, context):
+            seen.append(context["exception"])
+
+    loop = Loop()
+    for exc in (tornado.websocket.WebSocketClosedError(), tornado.iostream.StreamClosedError()):
+        serving._closed_connections_are_not_errors(loop, {"exception": exc})
+    assert seen == []
+    other = ValueError("a real failure")
+    serving._closed_connections_are_not_errors(loop, {"exception": other})
+    assert seen == [other]
