@@ -16,15 +16,19 @@ from dataclasses import dataclass
 import panel as pn
 import param
 
-from compute.model import ELEMENT_TYPES, Element, Numerics, Screen, Setup, Source
+from compute.model import ELEMENT_TYPES, Camera, Element, Numerics, Screen, Setup, Source
 
 __all__ = [
+    "CAMERA_FIELDS",
     "ELEMENT_FIELDS",
+    "SPECTRUM_FIELDS",
     "UNITS",
+    "CameraEditor",
     "ChoiceControl",
     "ElementEditor",
     "QuantityControl",
     "SetupControls",
+    "SpectrumControls",
     "element_summary",
     "format_vertices",
     "parse_vertices",
@@ -45,6 +49,10 @@ UNITS: dict[str, float] = {
     "W/m²": 1.0,
     "°": math.pi / 180.0,
     "rad": 1.0,
+    "mrad": 1e-3,
+    "µrad": 1e-6,
+    "ms": 1e-3,
+    "e⁻": 1.0,
     "": 1.0,
 }
 
@@ -150,13 +158,14 @@ class QuantityControl:
         """A plain message when ``value`` (display units) is outside the model bounds."""
         if value is None or (isinstance(value, float) and not math.isfinite(value)):
             return "a number is needed"
+        unit = f" {self.unit}" if self.unit else ""
         if self.lower is not None and (
             value < self.lower or (self.lower_open and value <= self.lower)
         ):
             sign = ">" if self.lower_open else "≥"
-            return f"{_fmt(value)} {self.unit} is too small; it must be {sign} {_fmt(self.lower)}"
+            return f"{_fmt(value)}{unit} is too small; it must be {sign} {_fmt(self.lower)}"
         if self.upper is not None and value > self.upper:
-            return f"{_fmt(value)} {self.unit} is too large; it must be ≤ {_fmt(self.upper)}"
+            return f"{_fmt(value)}{unit} is too large; it must be ≤ {_fmt(self.upper)}"
         return None
 
     def _changed(self, event: param.parameterized.Event) -> None:
@@ -514,3 +523,162 @@ class SetupControls:
 def new_element(shape: str) -> Element:
     """A fresh element of ``shape`` with the model's defaults."""
     return ELEMENT_TYPES[shape]()
+
+
+# ---------------------------------------------------- spectrum, source size and camera
+
+#: Spectrum shapes as the selector shows them.
+SPECTRUM_LABELS = {"monochromatic": "none", "Gaussian": "gaussian", "flat band": "flat"}
+SPECTRUM_FIELDS = [
+    Field("bandwidth", "nm", "Bandwidth", step=1.0),
+    Field("spectral_samples", "", "Spectral samples (0 = automatic)"),
+    Field("source_diameter", "mrad", "Source angular diameter", step=0.01),
+]
+#: What the bandwidth means for each spectrum shape.
+BANDWIDTH_LABELS = {"gaussian": "Bandwidth, FWHM", "flat": "Bandwidth, full width"}
+
+CAMERA_FIELDS = [
+    Field("pixel_pitch", "µm", "Pixel pitch", step=0.1),
+    Field("pixels_x", "", "Pixels across (x)", step=64),
+    Field("pixels_y", "", "Pixels down (y)", step=64),
+    Field("offset_x", "mm", "Sensor centre x"),
+    Field("offset_y", "mm", "Sensor centre y"),
+    Field("fill_factor", "", "Fill factor", step=0.05),
+    Field("quantum_efficiency", "", "Quantum efficiency", step=0.05),
+    Field("exposure", "ms", "Exposure", step=0.01),
+    Field("full_well", "e⁻", "Full well", step=1000),
+    Field("bit_depth", "", "Bit depth"),
+    Field("read_noise", "e⁻", "Read noise, rms", step=0.5),
+    Field("seed", "", "Noise seed"),
+]
+
+
+def _label(field: Field, text: str | None = None) -> str:
+    text = text or field.label
+    return f"{text} ({field.unit})" if field.unit else text
+
+
+class SpectrumControls:
+    """The source's spectrum (shape, width, samples) and its angular size.
+
+    Each control reports ``(path, value_si)`` to ``on_change`` like every other
+    control; the bandwidth and the sample count show only for a broad spectrum.
+    """
+
+    def __init__(self, on_change: OnChange):
+        self.shape = ChoiceControl("source.spectrum", SPECTRUM_LABELS, "Spectrum", on_change)
+        self.fields = {f.name: f for f in SPECTRUM_FIELDS}
+        self.quantities = {
+            f.name: QuantityControl(f"source.{f.name}", Source.param[f.name], f, on_change)
+            for f in SPECTRUM_FIELDS
+        }
+
+    @property
+    def controls(self) -> list[QuantityControl]:
+        return list(self.quantities.values())
+
+    def panel(self) -> pn.Column:
+        q = self.quantities
+        return pn.Column(
+            self.shape.widget,
+            q["bandwidth"].widget,
+            q["spectral_samples"].widget,
+            q["source_diameter"].widget,
+            sizing_mode="stretch_width",
+            css_classes=["fb-spectrum-controls"],
+        )
+
+    def refresh(self, setup: Setup) -> None:
+        """Show the spectrum and source size of ``setup``, reporting no change."""
+        src = setup.source
+        self.shape.show(src.spectrum)
+        broad = src.spectrum != "none"
+        for name, c in self.quantities.items():
+            c.show(getattr(src, name))
+            if name != "source_diameter":
+                c.widget.visible = broad
+        if broad:
+            text = BANDWIDTH_LABELS[src.spectrum]
+            self.quantities["bandwidth"].widget.label = _label(self.fields["bandwidth"], text)
+
+
+class CameraEditor:
+    """The camera section: a switch that adds or removes it, then its settings.
+
+    ``on_toggle(bool)`` is called when the user adds (True) or removes the camera;
+    every setting reports ``("camera.<name>", value_si)`` to ``on_change``.
+    """
+
+    def __init__(self, on_change: OnChange, on_toggle: Callable[[bool], None]):
+        self._on_toggle = on_toggle
+        self._muted = False
+        self.toggle = pn.widgets.Checkbox(
+            label="Camera on the screen plane", value=False, css_classes=["fb-camera-toggle"]
+        )
+        self.toggle.param.watch(self._toggled, "value")
+        self.quantities = {
+            f.name: QuantityControl(f"camera.{f.name}", Camera.param[f.name], f, on_change)
+            for f in CAMERA_FIELDS
+        }
+        self.shot_noise = pn.widgets.Checkbox(
+            label="Photon shot noise", value=True, css_classes=["fb-camera-shot-noise"]
+        )
+
+        def _shot(event: param.parameterized.Event) -> None:
+            if not self._muted:
+                on_change("camera.shot_noise", bool(event.new))
+
+        self.shot_noise.param.watch(_shot, "value")
+        q = self.quantities
+        self.settings = pn.Column(
+            pn.Row(q["pixel_pitch"].widget, q["bit_depth"].widget, sizing_mode="stretch_width"),
+            pn.Row(q["pixels_x"].widget, q["pixels_y"].widget, sizing_mode="stretch_width"),
+            pn.Row(q["offset_x"].widget, q["offset_y"].widget, sizing_mode="stretch_width"),
+            pn.Row(
+                q["fill_factor"].widget,
+                q["quantum_efficiency"].widget,
+                sizing_mode="stretch_width",
+            ),
+            pn.Row(q["exposure"].widget, q["full_well"].widget, sizing_mode="stretch_width"),
+            pn.Row(q["read_noise"].widget, q["seed"].widget, sizing_mode="stretch_width"),
+            self.shot_noise,
+            visible=False,
+            sizing_mode="stretch_width",
+        )
+
+    @property
+    def controls(self) -> list[QuantityControl]:
+        return list(self.quantities.values())
+
+    def _toggled(self, event: param.parameterized.Event) -> None:
+        if not self._muted:
+            self._on_toggle(bool(event.new))
+
+    def panel(self) -> pn.Column:
+        return pn.Column(
+            self.toggle, self.settings, sizing_mode="stretch_width", css_classes=["fb-camera"]
+        )
+
+    def check(self, path: str, value_si: object) -> str | None:
+        """A plain message naming ``path`` when ``value_si`` is outside the model's bounds."""
+        name = path.removeprefix("camera.")
+        c = self.quantities.get(name)
+        if c is None or isinstance(value_si, bool) or not isinstance(value_si, (int, float)):
+            return None
+        shown = value_si if c.integer else to_display(float(value_si), c.unit)
+        problem = c.check(shown)
+        return None if problem is None else f"{path}: {problem}"
+
+    def refresh(self, setup: Setup) -> None:
+        """Show the camera of ``setup`` (or its absence), reporting no change."""
+        cam = setup.camera
+        self._muted = True
+        try:
+            self.toggle.value = cam is not None
+            self.settings.visible = cam is not None
+            if cam is not None:
+                for name, c in self.quantities.items():
+                    c.show(getattr(cam, name))
+                self.shot_noise.value = bool(cam.shot_noise)
+        finally:
+            self._muted = False

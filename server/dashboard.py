@@ -37,7 +37,16 @@ from compute import engine, snapshot
 from compute.errors import SetupError
 from compute.model import ELEMENT_TYPES, Element, Setup
 from compute.pngdata import PngDataError, decode_png_data_url
-from server import alongz_view, controls, sharing, sweep_panel, urlstate, views
+from server import (
+    alongz_view,
+    camera_panel,
+    controls,
+    cutplot,
+    sharing,
+    sweep_panel,
+    urlstate,
+    views,
+)
 from server.controls import SHAPE_LABELS, ElementEditor, SetupControls, to_display
 
 __all__ = ["MAX_UPLOAD_BYTES", "Dashboard"]
@@ -653,12 +662,8 @@ class Dashboard(pn.viewable.Viewer):
 
         # Views.
         self.map_pane = pn.pane.HoloViews(None, sizing_mode="stretch_width", css_classes=["fb-map"])
-        self.cut_x_pane = pn.pane.HoloViews(
-            None, sizing_mode="stretch_width", css_classes=["fb-cut-x"]
-        )
-        self.cut_y_pane = pn.pane.HoloViews(
-            None, sizing_mode="stretch_width", css_classes=["fb-cut-y"]
-        )
+        self.cut_x_pane = pn.pane.Bokeh(None, sizing_mode="stretch_width", css_classes=["fb-cut-x"])
+        self.cut_y_pane = pn.pane.Bokeh(None, sizing_mode="stretch_width", css_classes=["fb-cut-y"])
         self.aperture_pane = pn.pane.HoloViews(
             None, sizing_mode="stretch_width", css_classes=["fb-aperture"]
         )
@@ -684,10 +689,13 @@ class Dashboard(pn.viewable.Viewer):
         self.camera_slot = pn.Column(visible=False, css_classes=["fb-camera-slot"])
         self.extra_source_controls = pn.Column(sizing_mode="stretch_width")
         self.camera_controls = pn.Column(sizing_mode="stretch_width")
-        # --- issue 7 panels: the regime explorer's tabs
+        # The regime explorer's tabs.
         self.alongz_view = alongz_view.AlongZView(self)
         self.sweep_panel = sweep_panel.SweepPanel(self)
-        # --- issue 8 panels
+        # Spectrum, source size, camera and true colour (built on the widgets above).
+        self.source_camera = camera_panel.install(self)
+        self.true_colour = self.source_camera.colour
+        self.cmap_select = pn.Row(self.cmap_select, self.true_colour.widget, margin=0)
 
     def _elements_frame(self) -> pd.DataFrame:
         rows = []
@@ -771,13 +779,20 @@ class Dashboard(pn.viewable.Viewer):
     # ------------------------------------------------------------------- views
 
     def _build_plots(self) -> None:
-        """(Re)create the HoloViews objects; needed once, and when the scale changes."""
+        """(Re)create the plots; needed once, and when the scale changes."""
         self._map_pipe = hv.streams.Pipe(data=self._map_data)
         self._cross_pipe = hv.streams.Pipe(data=(self.cut_x, self.cut_y))
-        self._cut_pipes = {a: hv.streams.Pipe(data=self._cut_data(a)) for a in ("x", "y")}
         scale = self.scale
+        # True colour is display only; a DynamicMap holds one kind of element, so the
+        # switch rebuilds the plots.
+        colour = getattr(self, "true_colour", None)
+        colour_on = colour is not None and colour.shown
+        if colour is not None:
+            colour.built_with = colour_on
 
         def image(data):
+            if colour_on:
+                return colour.view(data)
             x, y, z = data
             return views.map_view(x, y, z, scale=scale, cmap=self.cmap)
 
@@ -790,20 +805,23 @@ class Dashboard(pn.viewable.Viewer):
         self._tap.add_subscriber(self._tapped)
         self.map_pane.object = img * cross_map
 
-        def cut(data):
-            if data is None:
-                return hv.Curve([], kdims=["x"], vdims=["irradiance"])
-            return views.cut_view(**data, scale=scale)
-
-        self.cut_x_pane.object = hv.DynamicMap(cut, streams=[self._cut_pipes["x"]])
-        self.cut_y_pane.object = hv.DynamicMap(cut, streams=[self._cut_pipes["y"]])
+        # The cuts are plain Bokeh figures updated in place (server.cutplot).
+        self._cut_plots = {a: cutplot.CutPlot(a, scale=scale) for a in ("x", "y")}
+        self.cut_x_pane.object = self._cut_plots["x"].figure
+        self.cut_y_pane.object = self._cut_plots["y"].figure
         self._plots_built = True
         self._send_cuts()
 
     def _tapped(self, x: float | None = None, y: float | None = None) -> None:
         if x is None or y is None:
             return
-        self.set_cut(x * 1e-3, y * 1e-3)
+        move = functools.partial(self.set_cut, x * 1e-3, y * 1e-3)
+        if self._doc is not None and self._doc.session_context is not None:
+            # HoloViews calls this outside the document lock; the cut plots are plain
+            # Bokeh models, changed only under it (the next tick of this session).
+            self._doc.add_next_tick_callback(move)
+        else:
+            move()
 
     def _show_result(self) -> None:
         r = self.result
@@ -881,8 +899,7 @@ class Dashboard(pn.viewable.Viewer):
         if self.result is None or not self._plots_built:
             return
         for axis in ("x", "y"):
-            data = self._cut_data(axis)
-            self._cut_pipes[axis].send(data)
+            self._cut_plots[axis].update(self._cut_data(axis))
         self._cross_pipe.send((self.cut_x, self.cut_y))
         note = self._closed.label or "no closed form for this aperture"
         self.overlay_note.object = f'<span class="fb-note">{html.escape(note)}</span>'

@@ -1,8 +1,9 @@
-"""What the dashboard shows: the screen map, the cuts, the aperture and the report cards.
+"""What the dashboard shows: the screen map, the aperture and the report cards.
 
 Each function here turns a result (or a setup) into one HoloViews element or one
-piece of HTML; none of them computes a diffraction pattern. Axes are in mm,
-irradiance in W/m². User-supplied text is escaped before it goes into HTML.
+piece of HTML (the cuts are in server.cutplot); none of them computes a diffraction
+pattern. Axes are in mm, irradiance in W/m². User-supplied text is escaped before it
+goes into HTML.
 """
 
 from __future__ import annotations
@@ -18,13 +19,13 @@ import numpy as np
 
 from compute import analytic, metrics
 from compute.model import Setup
+from server import cutplot
 
 __all__ = [
     "COLOUR_MAPS",
     "ClosedForm",
     "aperture_view",
     "closed_form",
-    "cut_view",
     "map_view",
     "numbers_card",
     "read_numbers",
@@ -40,8 +41,9 @@ COLOUR_MAPS = {
     "fire": "fire",  # colorcet
     "grey": "gray",
 }
-#: Dynamic range shown on the logarithmic scale (decades below the peak).
-LOG_DECADES = 6
+#: Dynamic range shown on the logarithmic scale (decades below the peak); the cuts
+#: (server.cutplot) use the same.
+LOG_DECADES = cutplot.LOG_DECADES
 _MM = 1e3
 
 _X = hv.Dimension("x", label="x", unit="mm")
@@ -144,7 +146,9 @@ def closed_form(setup: Setup, method: str, variant: str = "") -> ClosedForm:
     Fraunhofer forms (rect, circle, annulus, grating, a row of identical slits)
     apply when the method is the far field, or the screen sits in the back focal
     plane of the lens. The Fresnel forms (a rect, a straight edge) apply to the
-    near-field methods. Only a uniform, untilted plane wave qualifies.
+    near-field methods. Only a uniform, untilted, monochromatic plane wave from a
+    point-like source qualifies (a spectrum or a source size washes the fringes out,
+    which these forms do not show).
 
     References
     ----------
@@ -163,6 +167,10 @@ def closed_form(setup: Setup, method: str, variant: str = "") -> ClosedForm:
     els = list(ap.elements)
     if not els or (any(e.transmission <= 0.0 for e in els) and ap.background == "opaque"):
         return ClosedForm(None, none)
+    if (src.spectrum != "none" and src.bandwidth > 0.0) or src.source_diameter > 0.0:
+        return ClosedForm(
+            None, "no closed form for a broad-band or extended source (monochromatic point only)"
+        )
     lam, z = src.wavelength, scr.distance
     focal = scr.lens_focal_length
     far = method == "fraunhofer" and (focal is None or math.isclose(z, focal, rel_tol=1e-9))
@@ -236,61 +244,6 @@ def closed_form(setup: Setup, method: str, variant: str = "") -> ClosedForm:
             None, "no closed form at this distance (this aperture has one in the far field)"
         )
     return ClosedForm(None, none)
-
-
-# ----------------------------------------------------------------------------- cuts
-
-
-def cut_view(
-    coords: np.ndarray,
-    values: np.ndarray,
-    *,
-    axis: str,
-    at: float,
-    marker: float,
-    reference: np.ndarray | None,
-    reference_label: str,
-    scale: str,
-) -> hv.Overlay:
-    """A cross-section of the map along ``axis`` ('x' or 'y') through ``at`` (m).
-
-    ``reference`` is the closed-form curve on the same coordinates, or None.
-    """
-    kdim = _X if axis == "x" else _Y
-    other = "y" if axis == "x" else "x"
-    values = np.asarray(values, dtype=np.float64)
-    peak = float(np.max(values)) if values.size else 0.0
-    if reference is not None:
-        peak = max(peak, float(np.max(reference)))
-    opts: dict = {}
-    floor = _display_floor(peak)
-    if scale == "log":
-        values = np.maximum(values, floor)
-        opts = {"logy": True, "ylim": (floor, max(peak, floor * 10) * 1.5)}
-    curve = hv.Curve((coords * _MM, values), kdims=[kdim], vdims=[_I], label="computed").opts(
-        color="#f5a623", line_width=2, tools=["hover"], framewise=True
-    )
-    layers = [curve]
-    if reference is not None:
-        ref = np.maximum(reference, floor) if scale == "log" else reference
-        layers.append(
-            hv.Curve((coords * _MM, ref), kdims=[kdim], vdims=[_I], label=reference_label).opts(
-                color="#38d9c6", line_dash="dashed", line_width=1.5, framewise=True
-            )
-        )
-    layers.append(hv.VLine(marker * _MM).opts(color="#8892a6", line_width=1))
-    title = f"Cut along {axis} at {other} = {at * _MM:.4g} mm"
-    return hv.Overlay(layers).opts(
-        hv.opts.Overlay(
-            title=title,
-            responsive=True,
-            height=260,
-            framewise=True,
-            legend_position="top_right",
-            show_legend=reference is not None,
-            **opts,
-        )
-    )
 
 
 # ------------------------------------------------------------------------- aperture

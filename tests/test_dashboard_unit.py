@@ -180,8 +180,21 @@ def test_display_changes_recompute_nothing(dash, monkeypatch):
     assert calls == [] and dash.computations == runs and dash.result.key == key
     # The redrawn plots still render (HoloViews' Bokeh renderer, no browser needed).
     renderer = hv.renderer("bokeh")
-    for pane in (dash.map_pane, dash.cut_x_pane, dash.cut_y_pane, dash.aperture_pane):
+    for pane in (dash.map_pane, dash.aperture_pane):
         assert renderer.get_plot(pane.object).state is not None
+    # The cuts are Bokeh figures: on the log scale, with the chosen row and column.
+    r = dash.result
+    j, i = views.nearest(r.y, 5e-4), views.nearest(r.x, 1e-3)
+    for axis, pane, values in (
+        ("x", dash.cut_x_pane, r.intensity[j, :]),
+        ("y", dash.cut_y_pane, r.intensity[:, i]),
+    ):
+        assert pane.object.y_scale.__class__.__name__ == "LogScale"
+        data = pane.object.renderers[0].data_source.data
+        assert np.allclose(data[axis], (r.x if axis == "x" else r.y) * 1e3)  # mm
+        shown = np.asarray(data["irradiance"])
+        floor = max(values.max(), 0) * 1e-6
+        assert np.allclose(shown, np.maximum(values, floor), rtol=1e-12, atol=0)
     assert 'data-scale="log"' in dash.state_pane.object
     assert 'data-cmap="viridis"' in dash.state_pane.object
 
@@ -242,6 +255,24 @@ def test_two_identical_slits_get_the_two_slit_closed_form():
     expect = analytic.grating_fraunhofer(x, 0 * x, 2, 2.5e-4, 5e-5, 1e-3, 6.33e-7, 2.0, 100.0)
     assert np.allclose(cf.fn(x, 0 * x), expect)
     assert "2 slits" in cf.label
+
+
+@pytest.mark.parametrize(
+    "change",
+    [
+        {"spectrum": "gaussian", "bandwidth": 5e-9},
+        {"spectrum": "flat", "bandwidth": 5e-9},
+        {"source_diameter": 1e-3},
+    ],
+    ids=["gaussian spectrum", "flat spectrum", "extended source"],
+)
+def test_no_monochromatic_closed_form_for_a_spectrum_or_a_source_size(change):
+    s = _double_slit()
+    assert views.closed_form(s, "fraunhofer").fn is not None
+    for name, value in change.items():
+        setattr(s.source, name, value)
+    cf = views.closed_form(s, "fraunhofer")
+    assert cf.fn is None and "broad-band or extended" in cf.label
 
 
 def test_no_closed_form_for_an_irregular_aperture():

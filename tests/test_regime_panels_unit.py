@@ -1,4 +1,4 @@
-"""The along-the-beam and sweep tabs without a browser (issue 7).
+"""The along-the-beam and sweep tabs without a browser.
 
 Dashboards here compute in the calling thread (``threaded=False``); where a
 background thread is the point of a test the panel's own ``threaded`` is set.

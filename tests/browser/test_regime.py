@@ -1,4 +1,4 @@
-"""The along-the-beam and sweep tabs in a real headless Chromium (issue 7).
+"""The along-the-beam and sweep tabs in a real headless Chromium.
 
 Numbers are read from the page's state element and from Bokeh's data sources in
 the browser; the reference rows come from compute.sweep in this process.
@@ -163,7 +163,7 @@ def test_cancel_stops_within_a_second_and_keeps_the_points(kit):
     )
     pg.locator(".fb-sweep-cancel button").first.click()
     st = kit.wait_state(lambda s: s.get("sweep-state") == "cancelled", what="the stop")
-    # Must-show of issue 7: the app's own measure from the Cancel press to the stop.
+    # The app's own measure from the Cancel press to the stop.
     assert float(st["sweep-cancel-ms"]) < 1000.0
     done = int(st["sweep-done"])
     assert 2 <= done < 200
