@@ -131,7 +131,11 @@ class _Job:
 
 
 class ComputeQueue:
-    """A bounded, server-wide queue of computations, in arrival order.
+    """A bounded, server-wide queue of computations, by priority and then arrival.
+
+    Background work (priority :data:`PRIORITY_BACKGROUND` and above: along-z
+    images, sweep points) runs on at most all regular lanes but one, never on the
+    spare lane, so that it cannot keep any session's screen result waiting long.
 
     Parameters
     ----------
@@ -158,6 +162,7 @@ class ComputeQueue:
         self._cond = threading.Condition()
         self._pending: deque[_Job] = deque()
         self._started: dict[int, float] = {}  # lane -> monotonic start of its job
+        self._background: set[int] = set()  # lanes running background work
         self._used = 0
         self._seq = 0
         self._threads: list[threading.Thread] = []
@@ -293,7 +298,15 @@ class ComputeQueue:
             if left > 0:
                 return None, left
         # By priority, then arrival, passing over jobs that do not fit in memory yet.
-        fitting = [j for j in self._pending if self._used + j.nbytes <= self.memory_budget]
+        # Background work takes at most all regular lanes but one and never the spare,
+        # so that a screen result always finds a lane within its turn.
+        background_ok = lane < self.workers and len(self._background) < max(1, self.workers - 1)
+        fitting = [
+            j
+            for j in self._pending
+            if self._used + j.nbytes <= self.memory_budget
+            and (background_ok or j.priority < PRIORITY_BACKGROUND)
+        ]
         if not fitting:
             return None, None
         job = min(fitting, key=lambda j: (j.priority, j.seq))
@@ -311,6 +324,8 @@ class ComputeQueue:
                         return
                     self._cond.wait(timeout=wait)
                 self._started[lane] = time.monotonic()
+                if job.priority >= PRIORITY_BACKGROUND:
+                    self._background.add(lane)
                 self._used += job.nbytes
                 self.peak_bytes = max(self.peak_bytes, self._used)
                 self.peak_running = max(self.peak_running, len(self._started))
@@ -326,6 +341,7 @@ class ComputeQueue:
             finally:
                 with self._cond:
                     del self._started[lane]
+                    self._background.discard(lane)
                     self._used -= job.nbytes
                     self.completed += 1
                     self._cond.notify_all()

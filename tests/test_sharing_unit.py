@@ -778,6 +778,30 @@ def test_share_listens_on_all_interfaces_and_prints_a_generated_password_once():
         assert f"http://{addr}:{port}/" in log  # printed, never connected to
 
 
+def test_background_work_leaves_a_lane_for_screen_results():
+    q = sharing.ComputeQueue(workers=2, spare_after=60)
+    setup = load_preset(None)
+    release, started = threading.Event(), []
+    background = sharing.PRIORITY_OTHER + sharing.PRIORITY_BACKGROUND
+
+    def long_job(name: str):
+        started.append(name)
+        return release.wait(30)
+
+    first = q.submit(setup, lambda: long_job("along z a"), priority=background)
+    second = q.submit(setup, lambda: long_job("along z b"), priority=background)
+    screen = q.submit(setup, lambda: "screen", priority=sharing.PRIORITY_OTHER)
+    assert screen.result(timeout=30) == "screen"  # the lane background may not take
+    deadline = time.monotonic() + 10
+    while not started and time.monotonic() < deadline:  # its thread runs it just after
+        time.sleep(0.01)
+    assert started == ["along z a"] and not second.running()
+    release.set()
+    assert first.result(timeout=30) and second.result(timeout=30)
+    assert started == ["along z a", "along z b"]
+    q.close()
+
+
 def test_a_browser_closing_mid_write_is_not_logged_as_an_error():
     import tornado.iostream
     import tornado.websocket
