@@ -379,7 +379,8 @@ class AlongZView:
         """Show the image for the current setup: from the cache, or computed if shown or forced."""
         setup = self.dash.setup
         key = alongz_key(setup)
-        self._marker_pipe.send(setup.screen.distance)
+        if force or self.shown():
+            self._move_marker(setup.screen.distance)
         if key == self.data_key and self.status != "computing":
             self.status, self.error = "ready", ""
             self._publish()
@@ -457,6 +458,10 @@ class AlongZView:
             return
         self._show(key, fut.result())
 
+    def _move_marker(self, distance: float) -> None:
+        if self._marker_pipe.data != distance:
+            self._marker_pipe.send(distance)
+
     def _show(self, key: str, data: AlongZ) -> None:
         self.data, self.data_key = data, key
         self.status, self.error = "ready", ""
@@ -482,9 +487,12 @@ class AlongZView:
             self.request()
 
     def _setup_changed(self, setup: Setup) -> None:
-        # The marker follows at once; the image waits for the screen result (so that
-        # the screen's own computation goes first), or for the tab to be shown.
-        self._marker_pipe.send(setup.screen.distance)
+        # The marker follows at once while the tab is shown (redrawing it costs tens of
+        # milliseconds of the shared event loop; a hidden tab catches up when shown);
+        # the image waits for the screen result, so that the screen's own computation
+        # goes first.
+        if self.shown():
+            self._move_marker(setup.screen.distance)
         if self.status == "ready" and alongz_key(setup) != self.data_key:
             self.status = "stale"
         self._publish()

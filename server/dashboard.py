@@ -689,9 +689,11 @@ class Dashboard(pn.viewable.Viewer):
         self.camera_slot = pn.Column(visible=False, css_classes=["fb-camera-slot"])
         self.extra_source_controls = pn.Column(sizing_mode="stretch_width")
         self.camera_controls = pn.Column(sizing_mode="stretch_width")
-        # The regime explorer's tabs.
-        self.alongz_view = alongz_view.AlongZView(self)
+        # The regime explorer's tabs. The sweep tab comes first: it computes only when
+        # asked, while the along-z image follows every change once its tab is open,
+        # which on a shared server should be the choice of those who look at it.
         self.sweep_panel = sweep_panel.SweepPanel(self)
+        self.alongz_view = alongz_view.AlongZView(self)
         # Spectrum, source size, camera and true colour (built on the widgets above).
         self.source_camera = camera_panel.install(self)
         self.true_colour = self.source_camera.colour
@@ -781,7 +783,7 @@ class Dashboard(pn.viewable.Viewer):
     def _build_plots(self) -> None:
         """(Re)create the plots; needed once, and when the scale changes."""
         self._map_pipe = hv.streams.Pipe(data=self._map_data)
-        self._cross_pipe = hv.streams.Pipe(data=(self.cut_x, self.cut_y))
+        self._cross_spans = views.crosshair_spans()
         scale = self.scale
         # True colour is display only; a DynamicMap holds one kind of element, so the
         # switch rebuilds the plots.
@@ -796,14 +798,20 @@ class Dashboard(pn.viewable.Viewer):
             x, y, z = data
             return views.map_view(x, y, z, scale=scale, cmap=self.cmap)
 
-        def cross(data):
-            return views.crosshair(*data)
+        spans = self._cross_spans
 
-        img = hv.DynamicMap(image, streams=[self._map_pipe])
-        cross_map = hv.DynamicMap(cross, streams=[self._cross_pipe])
+        def add_crosshair(plot, _element) -> None:
+            # The crosshair lives on the map's own figure; clicks only move it.
+            fig = plot.state
+            if spans[0] not in fig.center:
+                for span in spans:
+                    fig.add_layout(span)
+            self._place_crosshair()
+
+        img = hv.DynamicMap(image, streams=[self._map_pipe]).opts(hooks=[add_crosshair])
         self._tap = hv.streams.Tap(source=img, x=None, y=None)
         self._tap.add_subscriber(self._tapped)
-        self.map_pane.object = img * cross_map
+        self.map_pane.object = img
 
         # The cuts are plain Bokeh figures updated in place (server.cutplot).
         self._cut_plots = {a: cutplot.CutPlot(a, scale=scale) for a in ("x", "y")}
@@ -900,9 +908,14 @@ class Dashboard(pn.viewable.Viewer):
             return
         for axis in ("x", "y"):
             self._cut_plots[axis].update(self._cut_data(axis))
-        self._cross_pipe.send((self.cut_x, self.cut_y))
+        self._place_crosshair()
         note = self._closed.label or "no closed form for this aperture"
         self.overlay_note.object = f'<span class="fb-note">{html.escape(note)}</span>'
+
+    def _place_crosshair(self) -> None:
+        vertical, horizontal = self._cross_spans
+        vertical.location = self.cut_x * 1e3  # the map's axes are in mm
+        horizontal.location = self.cut_y * 1e3
 
     def _set_busy_view(self, busy: bool) -> None:
         self.spinner.value = busy

@@ -16,6 +16,7 @@ from typing import Any
 
 import holoviews as hv
 import numpy as np
+from bokeh.models import Span
 
 from compute import analytic, metrics
 from compute.model import Setup
@@ -26,6 +27,7 @@ __all__ = [
     "ClosedForm",
     "aperture_view",
     "closed_form",
+    "crosshair_spans",
     "map_view",
     "numbers_card",
     "read_numbers",
@@ -88,10 +90,16 @@ def map_view(
     )
 
 
-def crosshair(cut_x: float, cut_y: float) -> hv.Overlay:
-    """Lines through the chosen point on the map (positions in m)."""
-    style = {"color": "#38d9c6", "line_width": 1, "line_dash": "dashed"}
-    return hv.VLine(cut_x * _MM).opts(**style) * hv.HLine(cut_y * _MM).opts(**style)
+def crosshair_spans() -> tuple[Span, Span]:
+    """The vertical and horizontal lines through the chosen point of the map.
+
+    Plain Bokeh models that the dashboard adds to the map's figure once and then
+    moves by their ``location`` (mm): a click moves two numbers, not a plot.
+    """
+    style = {"line_color": "#38d9c6", "line_width": 1, "line_dash": "dashed"}
+    return Span(dimension="height", location=0.0, **style), Span(
+        dimension="width", location=0.0, **style
+    )
 
 
 def nearest(axis: np.ndarray, value: float) -> int:

@@ -270,7 +270,7 @@ def test_the_camera_panel_hides_when_a_result_has_no_frame(dash):
 
 
 def _map_element(d: Dashboard):
-    return d.map_pane.object[()].get(0)
+    return d.map_pane.object[()]  # the map element itself (the crosshair is Bokeh spans)
 
 
 def test_true_colour_of_532_nm_is_green_and_computes_nothing(dash):

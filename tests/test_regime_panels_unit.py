@@ -90,6 +90,7 @@ def test_the_tab_registers_and_computes_on_demand_only(dash):
 
 def test_moving_the_screen_moves_only_the_marker(dash):
     view = dash.alongz_view
+    dash.explore_tabs.active = dash.explore_tabs.objects.index(view.panel)  # open: it follows
     view.request(force=True)
     key, n = view.data_key, view.computations
     assert dash.set_value("screen.distance", 2.5)

@@ -266,6 +266,10 @@ def test_the_host_computes_first_then_its_followers_then_the_others():
     gate = threading.Event()
     order: list[str] = []
     blocker = q.submit(0, lambda: gate.wait(10))
+    deadline = time.monotonic() + 10
+    while not blocker.running() and time.monotonic() < deadline:  # the lane holds it
+        time.sleep(0.01)
+    assert blocker.running()
     futs = [
         q.submit(0, lambda n=name: order.append(n), priority=prio)
         for name, prio in [
