@@ -185,11 +185,15 @@ class QuantityControl:
         try:
             w = self.widget
             if isinstance(w, pn.widgets.EditableFloatSlider):
-                # Widen the soft range so that the value always sits on the slider.
+                # Widen the soft range so that the value sits on the slider, with room
+                # beyond it: nearby values then leave the range alone, and a range that
+                # changed with every value would redraw the box under the user's typing.
                 if shown < w.start:
-                    w.start = shown
+                    start = shown - 0.5 * (w.end - shown)
+                    w.start = start if self.lower is None else max(self.lower, start)
                 if shown > w.end:
-                    w.end = shown
+                    end = shown + 0.5 * (shown - w.start)
+                    w.end = end if self.upper is None else min(self.upper, end)
             w.value = shown
         finally:
             self._muted = False

@@ -430,3 +430,19 @@ def test_dashboard_renders_outside_a_server_as_in_a_notebook(dash):
     assert len(figures) >= 5  # the map, two cuts, aperture amplitude and phase
     texts = "".join(str(getattr(m, "text", "")) for m in models)
     assert "laser-safety standard" in texts
+
+
+def test_a_value_beyond_the_slider_range_widens_it_with_room_to_spare():
+    from server.controls import SetupControls
+
+    shown = SetupControls(lambda path, value: None)
+    s = Setup()
+    slider = shown.control_for("screen.distance").widget
+    end = slider.end
+    s.screen.distance = end + 0.01  # metres: just past the slider's own range
+    shown.refresh(s)
+    assert slider.value == pytest.approx(end + 0.01) and slider.end > end + 1.0
+    widened = slider.end
+    s.screen.distance = end + 0.02  # a nearby value leaves the range as it is
+    shown.refresh(s)
+    assert slider.end == widened and slider.value == pytest.approx(end + 0.02)
