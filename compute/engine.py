@@ -352,7 +352,7 @@ def compute(
 
     if incoherent.needed(setup):  # spectrum, source size or camera: a sum of coherent runs
         return incoherent.compute(
-            setup, memory_limit=memory_limit, use_cache=use_cache, cache=store
+            setup, memory_limit=memory_limit, use_cache=use_cache, cache=store, key=key
         )
     p = planning.plan(setup, memory_limit=memory_limit)
     xs, ys = planning.screen_axes(setup)

@@ -731,6 +731,7 @@ def compute(
     memory_limit: int = DEFAULT_MEMORY_LIMIT,
     use_cache: bool = True,
     cache=None,
+    key: str | None = None,
 ):
     """The screen (and camera frame) of a partially coherent setup, as a Result.
 
@@ -742,7 +743,8 @@ def compute(
     ``extras``: ``xyz`` (float32 (ny, nx, 3), the CIE 1931 tristimulus values of a
     broad-band screen), and with a camera ``counts`` (uint16/uint32, (py, px)),
     ``camera_x`` (px,), ``camera_y`` (py,) (pixel centres, m), ``saturated`` (bool)
-    and ``electrons`` (float32, the mean photoelectrons before noise).
+    and ``electrons`` (float32, the mean photoelectrons before noise). ``key`` is
+    the setup's physics hash when the caller has it already.
 
     Raises
     ------
@@ -754,7 +756,8 @@ def compute(
 
     t0 = time.perf_counter()
     store = engine.RESULT_CACHE if cache is None else cache
-    key = physics_hash(setup)
+    if key is None:
+        key = physics_hash(setup)
     r = route(setup, memory_limit=memory_limit)
     kw = {"memory_limit": memory_limit, "use_cache": use_cache, "cache": store}
     try:
