@@ -32,6 +32,7 @@ __all__ = [
     "check",
     "compute",
     "field_at_points",
+    "monochromatic",
 ]
 
 
@@ -164,8 +165,35 @@ def _taper(coord: np.ndarray, lo: float, hi: float, t_lo: float, t_hi: float) ->
     return w
 
 
+# Grids up to this many samples keep their transmittance in a caller's memo; on larger
+# ones the propagation dominates and the memo's memory would count against its budget.
+_MEMO_SAMPLES = 1 << 20
+
+
+def _transmittances(
+    setup: Setup, p: Plan, x: np.ndarray, y: np.ndarray, samples: dict | None
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Quadrature and power transmittance on pixels (x, y), from ``samples`` when it has them.
+
+    Both depend on the aperture and the grid alone, not on the wavelength. The memo
+    holds the latest grid only: consecutive wavelengths mostly plan the same one.
+    """
+    dx, dy = p.dx, p.dy
+    grid = (p.babinet, x.size, float(x[0]), dx, y.size, float(y[0]), dy)
+    if samples is not None and samples.get("grid") == grid:
+        return samples["t"], samples["pt"]
+    t = apertures.quadrature_transmittance(setup.aperture, x, y, pitch=(dx, dy))
+    if p.babinet:
+        t = 1.0 - t
+    # Area-weighted |t|², not |T|²: the power that really passes the aperture.
+    pt = None if p.babinet else apertures.power_transmittance(setup.aperture, x, y, pitch=(dx, dy))
+    if samples is not None and x.size * y.size <= _MEMO_SAMPLES:
+        samples.update(grid=grid, t=t, pt=pt)
+    return t, pt
+
+
 def _aperture_field(
-    setup: Setup, p: Plan, x: np.ndarray, y: np.ndarray
+    setup: Setup, p: Plan, x: np.ndarray, y: np.ndarray, samples: dict | None = None
 ) -> tuple[np.ndarray, float | None]:
     """The field leaving the aperture plane on pixels (x, y), and the power it carries.
 
@@ -176,10 +204,7 @@ def _aperture_field(
     (Babinet), to be subtracted from the unobstructed beam, and the power
     through the aperture is unbounded (None).
     """
-    dx, dy = p.dx, p.dy
-    t = apertures.quadrature_transmittance(setup.aperture, x, y, pitch=(dx, dy))
-    if p.babinet:
-        t = 1.0 - t
+    t, pt = _transmittances(setup, p, x, y, samples)
     inc = sources.incident_field(setup.source, x, y)
     weight = None
     if p.taper is not None:
@@ -189,10 +214,8 @@ def _aperture_field(
         weight = ty[:, None] * tx[None, :]
         inc *= weight
     power_in = None
-    if not p.babinet:
-        # Area-weighted |t|², not |T|²: the power that really passes the aperture.
-        pt = apertures.power_transmittance(setup.aperture, x, y, pitch=(dx, dy))
-        power_in = float(np.sum((inc.real**2 + inc.imag**2) * pt) * dx * dy)
+    if pt is not None:
+        power_in = float(np.sum((inc.real**2 + inc.imag**2) * pt) * p.dx * p.dy)
     u = inc * t
     return u.astype(p.dtype, copy=False), power_in
 
@@ -248,7 +271,7 @@ def _kernel(p: Plan, lam: float, z: float) -> np.ndarray:
     )
 
 
-def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple:
+def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray, samples=None) -> tuple:
     big_y, big_x = p.padded
     gx = centred_axis(big_x, p.dx, p.grid_centre[0])
     gy = centred_axis(big_y, p.dy, p.grid_centre[1])
@@ -260,7 +283,7 @@ def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple
     j0 = max(0, math.floor((box[2] - tx[2] - gy[0]) / p.dy) - 1)
     j1 = min(big_y, math.ceil((box[3] + tx[3] - gy[0]) / p.dy) + 2)
     sub_x, sub_y = gx[i0:i1], gy[j0:j1]
-    u, power_in = _aperture_field(setup, p, sub_x, sub_y)
+    u, power_in = _aperture_field(setup, p, sub_x, sub_y, samples)
     f = setup.screen.lens_focal_length
     if f is not None:
         ly, lx = propagators.lens_phase(sub_x, sub_y, setup.source.wavelength, f)
@@ -286,15 +309,15 @@ def _convolution(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple
     return field, power_in
 
 
-def _propagate(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray) -> tuple:
+def _propagate(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray, samples=None) -> tuple:
     lam, z = setup.source.wavelength, setup.screen.distance
     f = setup.screen.lens_focal_length
     if p.variant == "closed_form":
         return np.zeros((len(ys), len(xs)), dtype=np.complex128), 0.0
     if p.method in ("angular_spectrum",) or p.variant == "transfer_function":
-        return _convolution(setup, p, xs, ys)
+        return _convolution(setup, p, xs, ys, samples)
     x, y = _transform_axes(p)
-    u, power_in = _aperture_field(setup, p, x, y)
+    u, power_in = _aperture_field(setup, p, x, y, samples)
     pitch = (p.dx, p.dy)
     if p.method == "rayleigh_sommerfeld":
         if f is not None:
@@ -348,15 +371,38 @@ def compute(
         hit = store.get(key)
         if hit is not None:
             return replace(hit, cached=True, elapsed_s=time.perf_counter() - t0)
-    from . import incoherent  # here: it calls back into compute() for each component
+    from . import incoherent  # here: it calls back into monochromatic() for each component
 
     if incoherent.needed(setup):  # spectrum, source size or camera: a sum of coherent runs
         return incoherent.compute(
             setup, memory_limit=memory_limit, use_cache=use_cache, cache=store, key=key
         )
+    result = monochromatic(setup, memory_limit=memory_limit, key=key)
+    result.elapsed_s = time.perf_counter() - t0
+    if use_cache:
+        store.put(key, result)
+    return result
+
+
+def monochromatic(
+    setup: Setup,
+    *,
+    memory_limit: int = DEFAULT_MEMORY_LIMIT,
+    key: str = "",
+    samples: dict | None = None,
+) -> Result:
+    """The screen of a monochromatic point-like ``setup``: plan and propagate, uncached.
+
+    The coherent step under :func:`compute`, which hashes and caches; the sums of
+    :mod:`compute.incoherent` call it once per component, whose results are never
+    looked up again. ``samples`` is a memo, kept by the caller across components
+    of one aperture, of the transmittance sampled on the latest grid: wavelengths
+    that plan the same grid sample the aperture once (see :func:`_aperture_field`).
+    """
+    t0 = time.perf_counter()
     p = planning.plan(setup, memory_limit=memory_limit)
     xs, ys = planning.screen_axes(setup)
-    field, power_in = _propagate(setup, p, xs, ys)
+    field, power_in = _propagate(setup, p, xs, ys, samples)
     field = np.asarray(field, dtype=np.complex128)
     if p.babinet:
         paraxial = p.method in ("fraunhofer", "fresnel")
@@ -371,7 +417,7 @@ def compute(
         field = bg - field
         power_in = None
     intensity = field.real**2 + field.imag**2
-    result = Result(
+    return Result(
         x=xs,
         y=ys,
         intensity=intensity,
@@ -381,9 +427,6 @@ def compute(
         elapsed_s=time.perf_counter() - t0,
         key=key,
     )
-    if use_cache:
-        store.put(key, result)
-    return result
 
 
 def field_at_points(setup: Setup, px, py, *, grid_pitch: float | None = None) -> np.ndarray:

@@ -477,63 +477,129 @@ class _NotShiftInvariant(Exception):
 # --------------------------------------------------------------------------- the sums
 
 
-def _irradiance(setup: Setup, src: Source, screen: Screen, r: Route, kernels: dict, **kw) -> tuple:
-    """Irradiance of the component ``src`` of ``setup`` on ``screen``'s pixels, and its result."""
+def _memo(memo: dict, objs: tuple, build):
+    """``build()`` once per tuple of objects ``objs`` (by identity) in ``memo``."""
+    k = tuple(id(o) for o in objs)
+    hit = memo.get(k)
+    if hit is None:
+        hit = memo[k] = (objs, build())  # the objects are kept, so their ids stay theirs
+    return hit[1]
+
+
+def _on_screen(memo: dict, comp: Setup, screen: Screen) -> Setup:
+    """``comp`` on another screen, made once per pair (the source shared, so it follows)."""
+    return _memo(memo, (comp, screen), lambda: _with(comp, screen=screen))
+
+
+def _irradiance(comp: Setup, r: Route, memo: dict, memory_limit: int) -> tuple:
+    """Irradiance of the monochromatic component ``comp`` on its screen's pixels, and its result.
+
+    ``memo`` lives for one sum: the transmittance on the latest grid, the widened
+    screens and the blur kernels are made once for all components.
+    """
     from . import engine  # here, not at the top: the engine delegates to this module
 
+    samples = memo.setdefault("samples", {})
     if not (r.shift and r.blur_radius > 0.0):
-        res = engine.compute(_with(setup, source=src, screen=screen), **kw)
+        res = engine.monochromatic(comp, memory_limit=memory_limit, samples=samples)
         return res.intensity, res
-    mx, my = _margins(screen, r.blur_radius)
-    wide = _widened(screen, mx, my)
+    screen = comp.screen
+    wide = _memo(memo, (screen,), lambda: _widened(screen, *_margins(screen, r.blur_radius)))
     if wide is None:
         raise _NotShiftInvariant
-    res = engine.compute(_with(setup, source=src, screen=wide), **kw)
+    res = engine.monochromatic(
+        _on_screen(memo, comp, wide), memory_limit=memory_limit, samples=samples
+    )
     if res.plan.method not in PARAXIAL_METHODS:
         raise _NotShiftInvariant
     ny, nx = screen.shape_px()
     pitch = (screen.width / nx, screen.height / ny)
-    kern = kernels.get(pitch)
+    kern = memo.get(("kernel", pitch))
     if kern is None:
-        kern = kernels[pitch] = _blur_kernel(r.blur_radius, *pitch)
+        kern = memo["kernel", pitch] = _blur_kernel(r.blur_radius, *pitch)
     out = signal.fftconvolve(res.intensity, kern, mode="valid")
     return np.maximum(out, 0.0), res  # the FFT leaves rounding below zero in dark fringes
 
 
 def _components(setup: Setup, r: Route):
-    """(source, weight, wavelength) of every monochromatic component."""
+    """(setup, weight, wavelength) of every monochromatic component of ``setup``.
+
+    One camera-less, monochromatic setup per source direction, tuned in place to
+    each wavelength in turn: building a param instance costs as much as a small
+    propagation, setting a wavelength next to nothing. Each setup is valid until the
+    next item.
+    """
     da, db, dw = r.directions
-    for lam, wl in zip(r.wavelengths, r.weights, strict=True):
-        for a, b, w in zip(da, db, dw, strict=True):
-            yield _mono_source(setup.source, lam, a, b), float(wl * w), float(lam)
+    for a, b, w in zip(da, db, dw, strict=True):
+        src = _mono_source(setup.source, r.wavelengths[0], a, b)
+        comp = _with(setup, source=src)
+        for lam, wl in zip(r.wavelengths, r.weights, strict=True):
+            src.wavelength = float(lam)
+            yield comp, float(wl * w), float(lam)
 
 
-def _screen_sum(setup: Setup, r: Route, kw: dict) -> dict:
-    ny, nx = setup.screen.shape_px()
-    total = np.zeros((ny, nx))
-    xyz = np.zeros((3, ny, nx)) if r.wavelengths.size > 1 else None
+class _WeightedSums:
+    """Several weighted sums Σ_k w_ik S_k of the same screens S_k, in blocks.
+
+    Screens are stacked into a block of at most ``block_bytes`` and each full block
+    is added as one matrix product of its weights with it, which reads every screen
+    once for all sums (the irradiance and X, Y, Z) where separate multiply-adds
+    would read it once per sum.
+    """
+
+    def __init__(self, shape: tuple[int, int], sums: int, count: int, block_bytes=32 << 20):
+        self.shape = shape
+        n = shape[0] * shape[1]
+        self.total = np.zeros((sums, n))
+        self.size = max(1, min(count, block_bytes // (8 * n)))
+        self.block = np.empty((self.size, n)) if self.size > 1 else None
+        self.weights = np.empty((sums, self.size))
+        self.filled = 0
+
+    def add(self, screen: np.ndarray, weights) -> None:
+        if self.block is None:  # one screen per block: add it in place, nothing stacked
+            for row, w in zip(self.total, weights, strict=True):
+                row += w * screen.ravel()
+            return
+        self.block[self.filled] = screen.ravel()
+        self.weights[:, self.filled] = weights
+        self.filled += 1
+        if self.filled == self.size:
+            self._flush()
+
+    def _flush(self) -> None:
+        if self.filled:
+            self.total += self.weights[:, : self.filled] @ self.block[: self.filled]
+            self.filled = 0
+
+    def result(self) -> np.ndarray:
+        """The sums, (sums, ny, nx)."""
+        self._flush()
+        return self.total.reshape(-1, *self.shape)
+
+
+def _screen_sum(setup: Setup, r: Route, memory_limit: int) -> dict:
+    colours = r.wavelengths.size > 1
+    sums = _WeightedSums(setup.screen.shape_px(), 4 if colours else 1, r.components)
     power: float | None = 0.0
     single = None
-    kernels: dict = {}
-    for src, w, lam in _components(setup, r):
-        inten, res = _irradiance(setup, src, setup.screen, r, kernels, **kw)
-        total += w * inten
-        if xyz is not None:
-            for c, bar in enumerate(colour.cmf(lam)):
-                if bar > 0.0:
-                    xyz[c] += (w * bar) * inten
+    memo: dict = {}
+    for comp, w, lam in _components(setup, r):
+        inten, res = _irradiance(comp, r, memo, memory_limit)
+        sums.add(inten, (w, *(w * colour.cmf(lam))) if colours else (w,))
         power = None if power is None or res.power_in is None else power + w * res.power_in
         single = res
+    total = sums.result()
     coherent = r.components == 1 and not (r.shift and r.blur_radius > 0)
     return {
-        "intensity": total,
-        "xyz": None if xyz is None else np.moveaxis(xyz, 0, -1).astype(np.float32),
+        "intensity": total[0],
+        "xyz": np.moveaxis(total[1:], 0, -1).astype(np.float32) if colours else None,
         "power_in": power,
         "field": single.field if coherent else None,
     }
 
 
-def _sensor_sum(setup: Setup, r: Route, kw: dict) -> tuple[np.ndarray, float]:
+def _sensor_sum(setup: Setup, r: Route, memory_limit: int) -> tuple[np.ndarray, float]:
     """Photons per second on each pixel's active area, and the power on the whole sensor."""
     c = setup.camera
     k = r.subsamples
@@ -541,12 +607,11 @@ def _sensor_sum(setup: Setup, r: Route, kw: dict) -> tuple[np.ndarray, float]:
     whole = cam.box_stencil(k, 1.0)
     rate = np.zeros((c.pixels_y, c.pixels_x))
     power = 0.0
-    kernels: dict = {}
-    tile_kw = dict(kw, use_cache=False)  # sub-pixel tiles are large and seldom reused
-    for src, w, lam in _components(setup, r):
+    memo: dict = {}
+    for comp, w, lam in _components(setup, r):
         per_photon = lam / (cam.PLANCK * cam.LIGHT_SPEED)
         for t in r.tiles:
-            inten, _ = _irradiance(setup, src, t.screen, r, kernels, **tile_kw)
+            inten, _ = _irradiance(_on_screen(memo, comp, t.screen), r, memo, memory_limit)
             shape = (t.j1 - t.j0, t.i1 - t.i0)
             energy = cam.integrate_pixels(inten, k, shape, active, c.pixel_pitch)
             rate[t.j0 : t.j1, t.i0 : t.i1] += (w * per_photon) * energy
@@ -554,8 +619,8 @@ def _sensor_sum(setup: Setup, r: Route, kw: dict) -> tuple[np.ndarray, float]:
     return rate, power
 
 
-def _sensor_key(setup: Setup) -> str:
-    """What the photon rates on the sensor depend on: all but the read-out settings."""
+def _light_key(setup: Setup) -> str:
+    """What the light on the screen and the sensor depends on: all but the read-out settings."""
     from .snapshot import physics_hash
 
     c = setup.camera
@@ -567,7 +632,86 @@ def _sensor_key(setup: Setup) -> str:
         numerics=setup.numerics,
         camera=Camera(**values),
     )
-    return "sensor:" + physics_hash(probe)
+    return "light:" + physics_hash(probe)
+
+
+@dataclass
+class _Light:
+    """The propagated light of one setup: the screen sums and the photon rates on the sensor."""
+
+    route: Route
+    intensity: np.ndarray
+    xyz: np.ndarray | None
+    power_in: float | None
+    field: np.ndarray | None  # the one component's field, when there is only one
+    rate: np.ndarray | None = None  # photons per second on each pixel's active area
+    on_sensor: float = 0.0  # W on the whole sensor
+
+
+def _propagated(setup: Setup, r: Route, memory_limit: int) -> _Light:
+    """Every propagation of ``setup`` on route ``r``, or on the sampled route when the
+    exact blur turns out not to hold (a widened window planned non-paraxially)."""
+    try:
+        return _light_on(setup, r, memory_limit)
+    except _NotShiftInvariant:
+        return _light_on(setup, _sampled(setup, r), memory_limit)
+
+
+def _light_on(setup: Setup, r: Route, memory_limit: int) -> _Light:
+    screen = _screen_sum(setup, r, memory_limit)
+    light = _Light(r, **screen)
+    if setup.camera is not None:
+        light.rate, light.on_sensor = _sensor_sum(setup, r, memory_limit)
+    return light
+
+
+def _stored(setup: Setup, r: Route, memory_limit: int, use_cache: bool, store) -> _Light:
+    """:func:`_propagated`, cached apart from the camera's read-out settings.
+
+    With a camera, a change of exposure, gain or noise then recomputes no
+    propagation; without one, the caller caches the whole result.
+    """
+    from . import engine
+
+    if setup.camera is None or not use_cache:
+        return _propagated(setup, r, memory_limit)
+    key = _light_key(setup)
+    hit = store.get(key)
+    if hit is not None:
+        e = hit.extras
+        return _Light(
+            route=_sampled(setup, r) if r.shift and not bool(e["shift"]) else r,
+            intensity=hit.intensity,
+            xyz=e.get("xyz"),
+            power_in=hit.power_in,
+            field=hit.field if hit.field.size else None,
+            rate=e["rate"],
+            on_sensor=float(e["power_on_sensor"]),
+        )
+    light = _propagated(setup, r, memory_limit)
+    x, y = planning.screen_axes(setup)
+    extras = {
+        "rate": light.rate,
+        "power_on_sensor": np.array(light.on_sensor),
+        "shift": np.array(light.route.shift),
+    }
+    if light.xyz is not None:
+        extras["xyz"] = light.xyz
+    store.put(
+        key,
+        engine.Result(
+            x=x,
+            y=y,
+            intensity=light.intensity,
+            field=light.field if light.field is not None else np.zeros(0, np.complex128),
+            plan=light.route.plan,
+            power_in=light.power_in,
+            elapsed_s=0.0,
+            key=key,
+            extras=extras,
+        ),
+    )
+    return light
 
 
 # --------------------------------------------------------------------------- the report
@@ -736,7 +880,8 @@ def compute(
     """The screen (and camera frame) of a partially coherent setup, as a Result.
 
     Called by :func:`compute.engine.compute` for every setup that :func:`needed`
-    accepts; each monochromatic component goes back through it. The result holds
+    accepts; each monochromatic component is propagated by
+    :func:`compute.engine.monochromatic`, unhashed and uncached. The result holds
     the summed irradiance, √irradiance as its field (the field of the one component
     when there is only one), the central wavelength's plan with the lines of
     :func:`check` and, with a camera, ``camera_coverage`` and ``camera_exposure``.
@@ -758,23 +903,17 @@ def compute(
     store = engine.RESULT_CACHE if cache is None else cache
     if key is None:
         key = physics_hash(setup)
-    r = route(setup, memory_limit=memory_limit)
-    kw = {"memory_limit": memory_limit, "use_cache": use_cache, "cache": store}
-    try:
-        screen = _screen_sum(setup, r, kw)
-        frame = _camera(setup, r, kw, screen["power_in"]) if setup.camera else ({}, [])
-    except _NotShiftInvariant:
-        r = _sampled(setup, r)
-        screen = _screen_sum(setup, r, kw)
-        frame = _camera(setup, r, kw, screen["power_in"]) if setup.camera else ({}, [])
+    light = _stored(setup, route(setup, memory_limit=memory_limit), memory_limit, use_cache, store)
+    r = light.route
+    frame = _camera(setup, light) if setup.camera else ({}, [])
     items = _pre_items(setup, r) + frame[1]
     extras: dict = {}
-    if screen["xyz"] is not None:
-        extras["xyz"] = screen["xyz"]
+    if light.xyz is not None:
+        extras["xyz"] = light.xyz
     extras.update(frame[0])
     x, y = planning.screen_axes(setup)
-    inten = screen["intensity"]
-    fld = screen["field"]
+    inten = light.intensity
+    fld = light.field
     if fld is None:
         fld = np.sqrt(inten).astype(np.complex128)
     plan = replace(
@@ -788,7 +927,7 @@ def compute(
         intensity=inten,
         field=fld,
         plan=plan,
-        power_in=screen["power_in"],
+        power_in=light.power_in,
         elapsed_s=time.perf_counter() - t0,
         key=key,
         extras=extras,
@@ -811,44 +950,20 @@ def _sampled(setup: Setup, r: Route) -> Route:
     return out
 
 
-def _camera(setup: Setup, r: Route, kw: dict, power_in) -> tuple[dict, list[ValidityItem]]:
-    """The camera frame and its report lines.
-
-    The photon rates on the pixels are cached apart from the read-out settings, so
-    a change of exposure, gain or noise recomputes no propagation.
-    """
-    from . import engine
-
+def _camera(setup: Setup, light: _Light) -> tuple[dict, list[ValidityItem]]:
+    """The camera frame read out from the light on the sensor, and its report lines."""
     c = setup.camera
-    store = kw["cache"]
-    skey = _sensor_key(setup)
-    hit = store.get(skey) if kw["use_cache"] else None
-    if hit is not None:
-        rate, on_sensor = hit.intensity, float(hit.extras["power_on_sensor"])
-    else:
-        rate, on_sensor = _sensor_sum(setup, r, kw)
-        if kw["use_cache"]:
-            cx, cy = cam.sensor_axes(c)
-            store.put(
-                skey,
-                engine.Result(
-                    x=cx,
-                    y=cy,
-                    intensity=rate,
-                    field=np.zeros(0, np.complex128),
-                    plan=r.plan,
-                    power_in=None,
-                    elapsed_s=0.0,
-                    key=skey,
-                    extras={"power_on_sensor": np.array(on_sensor)},
-                ),
-            )
-    frame = cam.digitise(rate * c.exposure, c)
-    reference = power_in
+    frame = cam.digitise(light.rate * c.exposure, c)
+    reference = light.power_in
     if reference is None and setup.source.kind == "gaussian":
         reference = setup.source.power
     items = cam.validity_items(
-        setup, r.finest_period, on_sensor, reference, frame["electrons"], frame["saturated"]
+        setup,
+        light.route.finest_period,
+        light.on_sensor,
+        reference,
+        frame["electrons"],
+        frame["saturated"],
     )
     cx, cy = cam.sensor_axes(c)
     extras = {

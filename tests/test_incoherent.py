@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
 import pytest
 from scipy import integrate, special
 
-from compute import engine, incoherent, planning, snapshot
+from compute import apertures, engine, incoherent, planning, snapshot
 from compute.engine import ResultCache
 from compute.errors import SetupError
 from compute.model import Aperture as ApertureModel
@@ -177,16 +178,22 @@ def test_shift_route_matches_the_sampled_route(monkeypatch):
 
 
 def _spy_on_components(monkeypatch) -> list:
-    """Record the setups of the monochromatic components that reach the engine."""
+    """Record what each monochromatic component looks like when it reaches the engine.
+
+    The sums tune one setup in place from wavelength to wavelength, so the spy keeps
+    the values at the time of the call: (wavelength, spectrum, camera, x, y, grid).
+    """
     seen: list = []
-    original = engine.compute
+    original = engine.monochromatic
 
     def spy(setup, **kw):
-        if not incoherent.needed(setup):
-            seen.append(setup)
+        x, y = planning.screen_axes(setup)
+        p = planning.plan(setup)
+        grid = (p.nx, p.ny, p.dx, p.dy, p.grid_centre)
+        seen.append((setup.source.wavelength, setup.source.spectrum, setup.camera, x, y, grid))
         return original(setup, **kw)
 
-    monkeypatch.setattr(engine, "compute", spy)
+    monkeypatch.setattr(engine, "monochromatic", spy)
     return seen
 
 
@@ -201,17 +208,27 @@ def test_every_wavelength_lands_on_the_same_pixels_and_once(monkeypatch):
     )
     setup = double_slit(src, x0=0.0, width=0.01, samples=200)
     seen = _spy_on_components(monkeypatch)
+    sampled = []
+    sample = apertures.quadrature_transmittance
+    monkeypatch.setattr(
+        apertures,
+        "quadrature_transmittance",
+        lambda *a, **k: sampled.append(1) or sample(*a, **k),
+    )
     res = engine.compute(setup, use_cache=False)
     # One monochromatic computation per wavelength and nothing else: the cost of a
     # 16-wavelength screen is that of 16 monochromatic ones plus the sums.
     assert len(seen) == 16
-    lams = sorted(s.source.wavelength for s in seen)
+    lams = sorted(s[0] for s in seen)
     assert lams == pytest.approx(list(incoherent.route(setup).wavelengths))
     x, y = planning.screen_axes(setup)
-    for s in seen:
-        sx, sy = planning.screen_axes(s)
+    for _, spectrum_kind, camera, sx, sy, _ in seen:
         assert np.array_equal(sx, x) and np.array_equal(sy, y)
-        assert s.source.spectrum == "none" and s.camera is None
+        assert spectrum_kind == "none" and camera is None
+    # The aperture is sampled once per grid the wavelengths plan, not once per wavelength.
+    grids = [s[5] for s in seen]
+    changes = 1 + sum(a != b for a, b in itertools.pairwise(grids))
+    assert len(sampled) == changes < 16
     assert np.array_equal(res.x, x) and res.intensity.shape == (y.size, x.size)
     # Every wavelength carries its share of the same incident irradiance, so the power
     # through the aperture is that of the monochromatic beam (energy conservation,
