@@ -244,6 +244,21 @@ def _with_source(setup: Setup, src: Source) -> Setup:
     return Setup(source=src, aperture=setup.aperture, screen=setup.screen, numerics=setup.numerics)
 
 
+@pytest.mark.parametrize("block_bytes", [1, 3 * 8 * 12, 1 << 20])
+def test_block_sums_equal_the_plain_weighted_sums(block_bytes):
+    # One screen per block (added in place), blocks of three with a part-filled last
+    # block, and everything in one block: the same sums as term by term (arithmetic,
+    # common practice, no source).
+    rng = np.random.default_rng(7)
+    screens = rng.random((8, 3, 4))
+    weights = rng.random((8, 4))
+    sums = incoherent._WeightedSums((3, 4), 4, len(screens), block_bytes=block_bytes)
+    for screen, w in zip(screens, weights, strict=True):
+        sums.add(screen, w)
+    expected = np.einsum("ki,kyx->iyx", weights, screens)
+    assert np.allclose(sums.result(), expected, rtol=1e-13, atol=0)
+
+
 def test_a_very_narrow_spectrum_is_the_monochromatic_pattern():
     mono_src = Source(kind="plane", wavelength=LAM, irradiance=1.0)
     setup = double_slit(mono_src, x0=0.0, width=0.01, samples=200)
