@@ -355,5 +355,8 @@ def test_benchmark_emits_the_row_schema():
         if r["case"] == "broadband_render":
             assert r["wavelengths"] == 16 and r["monochromatic_s"] > 0
             assert r["ratio_to_monochromatic"] == pytest.approx(r["ours_s"] / r["monochromatic_s"])
+            # The broad-band screen is the spectrum's weighted sum of the monochromatic
+            # ones at its wavelengths (incoherent superposition, Born & Wolf ch. 10).
+            assert r["max_rel_diff"] < 1e-9
     text = benchmark.table(rows)
     assert text.count("\n") == len(rows) + 1
