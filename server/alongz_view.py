@@ -335,7 +335,7 @@ class AlongZView:
         self._wanted: tuple[str, Setup] | None = None
 
         self.compute_button = pn.widgets.Button(
-            label="Compute now", css_classes=["fb-alongz-compute"], button_type="primary", width=130
+            label="Compute now", css_classes=["fb-alongz-compute"], color="primary", width=130
         )
         self.compute_button.on_click(lambda _e: self.request(force=True))
         self.note = pn.pane.HTML(

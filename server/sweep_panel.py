@@ -403,11 +403,11 @@ class SweepPanel:
             width=220,
         )
         self.run_button = pn.widgets.Button(
-            label="Run", button_type="primary", css_classes=["fb-sweep-run"], width=90
+            label="Run", color="primary", css_classes=["fb-sweep-run"], width=90
         )
         self.cancel_button = pn.widgets.Button(
             label="Cancel",
-            button_type="warning",
+            color="warning",
             css_classes=["fb-sweep-cancel"],
             width=90,
             disabled=True,
