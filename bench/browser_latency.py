@@ -13,24 +13,14 @@ Prints the median in ms. A benchmark, not a test: nothing here passes or fails.
 from __future__ import annotations
 
 import argparse
-import os
-import socket
 import statistics
-import subprocess
 import sys
-import time
-import urllib.request
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-CHROMIUM_ARGS = [
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--no-first-run",
-]
+sys.path.insert(0, str(ROOT / "tests"))  # the shared server helpers
+
+from localserver import CHROMIUM, CHROMIUM_ARGS, free_port, start_server, stop_server  # noqa: E402
 
 # The sum of the screen map's image data in the browser (the image of the result's shape).
 MAP_SUM = """(shape) => {
@@ -46,32 +36,6 @@ MAP_SUM = """(shape) => {
 }"""
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
-def _start(port: int) -> subprocess.Popen:
-    env = dict(os.environ, PYTHONPATH=str(ROOT), PYTHONUNBUFFERED="1")
-    code = "import sys; from server.cli import main; sys.exit(main())"
-    proc = subprocess.Popen(
-        [sys.executable, "-c", code, "serve", "--port", str(port)],
-        cwd=ROOT,
-        env=env,
-        stdout=subprocess.DEVNULL,
-        stderr=subprocess.DEVNULL,
-    )
-    for _ in range(300):
-        try:
-            urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=2).close()
-            return proc
-        except OSError:
-            time.sleep(0.3)
-    proc.kill()
-    raise SystemExit("error: the server did not start")
-
-
 def _attr(pg, name: str) -> str | None:
     return pg.locator("#fb-state").get_attribute(f"data-{name}")
 
@@ -82,14 +46,12 @@ def main() -> int:
     args = parser.parse_args()
     from playwright.sync_api import sync_playwright
 
-    port = _free_port()
-    proc = _start(port)
+    port = free_port()
+    proc = start_server(port, output=False)
     samples, computes = [], []
     try:
         with sync_playwright() as p:
-            browser = p.chromium.launch(
-                executable_path="/usr/bin/chromium", args=CHROMIUM_ARGS, headless=True
-            )
+            browser = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS, headless=True)
             pg = browser.new_page(viewport={"width": 1600, "height": 1000})
             pg.goto(f"http://127.0.0.1:{port}/")
             pg.wait_for_selector("#fb-state[data-key]", state="attached", timeout=90_000)
@@ -116,8 +78,7 @@ def main() -> int:
                 computes.append(float(_attr(pg, "elapsed-ms") or "nan"))
             browser.close()
     finally:
-        proc.terminate()
-        proc.wait(timeout=15)
+        stop_server(proc)
     med = statistics.median(samples)
     print(f"runs: {len(samples)} at the default preset ({shape} px)")
     print(

@@ -39,7 +39,6 @@ import os
 import random
 import re
 import secrets
-import socket
 import statistics
 import subprocess
 import sys
@@ -49,8 +48,12 @@ from pathlib import Path
 from typing import Any
 
 ROOT = Path(__file__).resolve().parents[1]
-if str(ROOT) not in sys.path:
-    sys.path.insert(0, str(ROOT))
+for _path in (ROOT, ROOT / "tests"):  # the package, and the shared server helpers
+    if str(_path) not in sys.path:
+        sys.path.insert(0, str(_path))
+
+import localserver  # noqa: E402
+from localserver import CHROMIUM, free_port, start_server, stop_server  # noqa: E402
 
 from compute import snapshot  # noqa: E402
 from server.app import load_preset  # noqa: E402
@@ -60,14 +63,9 @@ __all__ = ["MAX_SECONDS", "MAX_SESSIONS", "run", "summary"]
 
 MAX_SESSIONS = 12
 MAX_SECONDS = 300.0
-CHROMIUM = "/usr/bin/chromium"
+# Pages in the background keep their timers and drawing: every session is live.
 CHROMIUM_ARGS = [
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--no-first-run",
+    *localserver.CHROMIUM_ARGS,
     "--disable-background-timer-throttling",
     "--disable-renderer-backgrounding",
     "--disable-backgrounding-occluded-windows",
@@ -117,41 +115,15 @@ def _nice_wrapper(chromium: str) -> Path:
     return path
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 def _start_server(port: int, password: str) -> subprocess.Popen:
-    env = dict(os.environ, PYTHONPATH=str(ROOT), PYTHONUNBUFFERED="1")
-    code = "import sys; from server.cli import main; sys.exit(main())"
-    args = ["serve", "--port", str(port), "--share", "--address", "127.0.0.1"]
     pw_file = Path(f"/tmp/fringebench-load-{os.getpid()}.pw")
     pw_file.write_text(password + "\n", encoding="utf-8")
     pw_file.chmod(0o600)
-    proc = subprocess.Popen(
-        [sys.executable, "-c", code, *args, "--password-file", str(pw_file)],
-        cwd=ROOT,
-        env=env,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.STDOUT,
-        text=True,
-    )
-    deadline = time.monotonic() + 90
     try:
-        while time.monotonic() < deadline:
-            if proc.poll() is not None:
-                raise RuntimeError(f"the server exited early:\n{proc.stdout.read()}")
-            try:
-                with socket.create_connection(("127.0.0.1", port), timeout=1):
-                    return proc
-            except OSError:
-                time.sleep(0.2)
+        args = ["--share", "--address", "127.0.0.1", "--password-file", str(pw_file)]
+        return start_server(port, *args, probe=None)
     finally:
         pw_file.unlink(missing_ok=True)
-    proc.kill()
-    raise RuntimeError("the server did not start within 90 s")
 
 
 def _peak_rss_bytes(pid: int) -> int | None:
@@ -171,16 +143,6 @@ def _cpu_seconds(pid: int) -> float | None:
     except OSError:
         return None
     return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
-
-
-def _stop_server(proc: subprocess.Popen) -> str:
-    proc.terminate()
-    try:
-        out, _ = proc.communicate(timeout=20)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        out, _ = proc.communicate()
-    return out or ""
 
 
 def expected_key(path: str, value_si: float) -> str:
@@ -438,7 +400,7 @@ def run(
         raise ValueError(f"sessions: from 1 to {MAX_SESSIONS}")
     if not 1.0 <= seconds <= MAX_SECONDS:
         raise ValueError(f"seconds: from 1 to {MAX_SECONDS:g}")
-    port = _free_port()
+    port = free_port()
     password = secrets.token_urlsafe(12)
     proc = _start_server(port, password)
     try:
@@ -472,7 +434,7 @@ def run(
         report["server_cpu_s"] = _cpu_seconds(proc.pid)
         report["load_average"] = os.getloadavg()
     finally:
-        log = _stop_server(proc)
+        log = stop_server(proc)
     report["server_errors"] = [m.group(0) + " …" for m in _SERVER_PROBLEM.finditer(log)]
     report["server_log_tail"] = log[-2000:] if report["server_errors"] else ""
     return report

@@ -16,13 +16,13 @@ import re
 import shutil
 import socket
 import subprocess
-import sys
 import threading
 import time
 import urllib.parse
 from pathlib import Path
 
 import pytest
+from localserver import free_port, start_server, stop_server
 
 from compute import engine, snapshot
 from compute.errors import SetupError
@@ -30,7 +30,6 @@ from server import cli, serving, sharing
 from server.app import load_preset
 from server.dashboard import Dashboard
 
-ROOT = Path(__file__).resolve().parents[1]
 PASSWORD = "lab-bench-4021"  # demo password for the loopback servers below
 
 
@@ -605,44 +604,8 @@ def test_background_work_waits_for_every_screen_result():
 # ----------------------------------------------------- a real server, loopback
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
-def _start(port: int, *args: str) -> subprocess.Popen:
-    env = dict(os.environ, PYTHONPATH=str(ROOT), PYTHONUNBUFFERED="1")
-    code = "import sys; from server.cli import main; sys.exit(main())"
-    proc = subprocess.Popen(
-        [sys.executable, "-c", code, "serve", "--port", str(port), *args],
-        cwd=ROOT,
-        env=env,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.STDOUT,
-        text=True,
-    )
-    deadline = time.monotonic() + 90
-    while time.monotonic() < deadline:
-        if proc.poll() is not None:
-            raise RuntimeError(f"the server exited early:\n{proc.stdout.read()}")
-        try:
-            with socket.create_connection(("127.0.0.1", port), timeout=1):
-                return proc
-        except OSError:
-            time.sleep(0.2)
-    proc.kill()
-    raise RuntimeError("the server did not start")
-
-
-def _stop(proc: subprocess.Popen) -> str:
-    proc.terminate()
-    try:
-        out, _ = proc.communicate(timeout=15)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        out, _ = proc.communicate()
-    return out or ""
+def _start(port: int, *args: str):
+    return start_server(port, *args, probe=None)  # a --share server answers its login page
 
 
 def _listening(port: int) -> set[str]:
@@ -694,10 +657,10 @@ def _upgrade(port: int, origin: str, cookie: str | None, token: str | None = Non
 
 @pytest.fixture(scope="module")
 def shared_server():
-    port = _free_port()
+    port = free_port()
     proc = _start(port, "--share", "--address", "127.0.0.1", "--password", PASSWORD)
     yield port, proc
-    log = _stop(proc)
+    log = stop_server(proc)
     assert PASSWORD not in log  # never logged or printed
     assert "Traceback" not in log, log[-3000:]
 
@@ -758,24 +721,24 @@ def test_websocket_upgrades_from_a_foreign_origin_are_refused(shared_server):
 
 
 def test_plain_serve_listens_on_loopback_only():
-    port = _free_port()
+    port = free_port()
     proc = _start(port)
     try:
         assert _listening(port) == {"127.0.0.1"}
         resp, _ = _request(port, "GET", "/")
         assert resp.status == 200  # no login without sharing
     finally:
-        log = _stop(proc)
+        log = stop_server(proc)
     assert "serving at http://127.0.0.1:" in log
 
 
 def test_share_listens_on_all_interfaces_and_prints_a_generated_password_once():
-    port = _free_port()
+    port = free_port()
     proc = _start(port, "--share")
     try:
         assert _listening(port) == {"0.0.0.0"}
     finally:
-        log = _stop(proc)
+        log = stop_server(proc)
     found = re.findall(r"Password for this start \(shown once\): (\S+)", log)
     assert len(found) == 1 and log.count(found[0]) == 1
     for _name, addr in serving.lan_addresses():

@@ -1,33 +1,20 @@
 """A real server and a real headless Chromium for the dashboard tests.
 
-The server is ``fringebench serve`` (through ``server.cli.main``) on a free
-loopback port in a subprocess. When Chromium cannot start the tests are
-skipped, unless ``FRINGEBENCH_REQUIRE_BROWSER=1`` asks for them to fail.
+The server is ``fringebench serve`` on a free loopback port in a subprocess
+(:mod:`localserver`, shared with the sharing tests and the bench scripts). When
+Chromium cannot start the tests are skipped, unless
+``FRINGEBENCH_REQUIRE_BROWSER=1`` asks for them to fail.
 """
 
 from __future__ import annotations
 
 import os
-import socket
-import subprocess
-import sys
 import time
-import urllib.request
-from pathlib import Path
 
 import pytest
+from localserver import CHROMIUM, CHROMIUM_ARGS, ROOT, free_port, start_server, stop_server
 
-ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "tests" / "artifacts"
-CHROMIUM = "/usr/bin/chromium"
-CHROMIUM_ARGS = [
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--no-first-run",
-]
 VIEWPORT = {"width": 1600, "height": 1000}
 
 #: Reads the data the page holds: every Bokeh image source (shape, max, sum) and
@@ -55,55 +42,13 @@ READ_PLOTTED = """() => {
 }"""
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 def _require_browser() -> bool:
     return os.environ.get("FRINGEBENCH_REQUIRE_BROWSER") == "1"
 
 
-def start_server(port: int, *extra: str) -> subprocess.Popen:
-    """Start ``fringebench serve --port PORT`` and wait until it answers."""
-    env = dict(os.environ, PYTHONPATH=str(ROOT), PYTHONUNBUFFERED="1")
-    cmd = [sys.executable, "-c", "import sys; from server.cli import main; sys.exit(main())"]
-    proc = subprocess.Popen(
-        [*cmd, "serve", "--port", str(port), *extra],
-        cwd=ROOT,
-        env=env,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.STDOUT,
-        text=True,
-    )
-    deadline = time.monotonic() + 90
-    while time.monotonic() < deadline:
-        if proc.poll() is not None:
-            raise RuntimeError(f"the server exited early:\n{proc.stdout.read()}")
-        try:
-            with urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=2) as r:
-                if r.status == 200:
-                    return proc
-        except OSError:
-            time.sleep(0.3)
-    proc.kill()
-    raise RuntimeError("the server did not answer within 90 s")
-
-
-def stop_server(proc: subprocess.Popen) -> str:
-    proc.terminate()
-    try:
-        out, _ = proc.communicate(timeout=15)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        out, _ = proc.communicate()
-    return out or ""
-
-
 @pytest.fixture(scope="session")
 def server_url():
-    port = _free_port()
+    port = free_port()
     proc = start_server(port)
     yield f"http://127.0.0.1:{port}/"
     log = stop_server(proc)

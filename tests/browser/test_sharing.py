@@ -17,19 +17,8 @@ import sys
 import time
 
 import pytest
-from conftest import (
-    ARTIFACTS,
-    CHROMIUM,
-    ROOT,
-    VIEWPORT,
-    _free_port,
-    open_dashboard,
-    set_number,
-    start_server,
-    state,
-    stop_server,
-    wait_state,
-)
+from conftest import ARTIFACTS, VIEWPORT, open_dashboard, set_number, state, wait_state
+from localserver import CHROMIUM, ROOT, free_port, start_server, stop_server
 
 from compute import snapshot
 from server.app import load_preset
@@ -42,7 +31,7 @@ PASSWORD = "bench-share-7731"  # demo password of the test server
 
 @pytest.fixture(scope="module")
 def shared_url():
-    port = _free_port()
+    port = free_port()
     proc = start_server(port, "--share", "--address", "127.0.0.1", "--password", PASSWORD)
     yield f"http://127.0.0.1:{port}/"
     log = stop_server(proc)
@@ -219,7 +208,7 @@ def test_an_oversized_upload_costs_only_its_own_connection(contexts, shared_url,
 
 
 def test_sessions_beyond_the_limit_get_a_notice_until_a_place_frees(contexts):
-    port = _free_port()
+    port = free_port()
     code = (
         "from server.serving import serve; "
         f"serve(port={port}, max_sessions=2, unused_session_lifetime_milliseconds=500, "
