@@ -398,7 +398,19 @@ def monochromatic(
     looked up again. ``samples`` is a memo, kept by the caller across components
     of one aperture, of the transmittance sampled on the latest grid: wavelengths
     that plan the same grid sample the aperture once (see :func:`_aperture_field`).
+
+    Raises
+    ------
+    ValueError
+        When ``setup`` has a spectrum, a source size or a camera: those are sums,
+        which :func:`compute` does.
+    SetupError
+        When the setup cannot be computed as it stands.
     """
+    from . import incoherent
+
+    if incoherent.needed(setup):
+        raise ValueError("monochromatic() takes a monochromatic point-like setup; use compute()")
     t0 = time.perf_counter()
     p = planning.plan(setup, memory_limit=memory_limit)
     xs, ys = planning.screen_axes(setup)

@@ -244,6 +244,19 @@ def _with_source(setup: Setup, src: Source) -> Setup:
     return Setup(source=src, aperture=setup.aperture, screen=setup.screen, numerics=setup.numerics)
 
 
+def test_the_coherent_step_is_compute_without_the_cache_and_refuses_sums():
+    mono_src = Source(kind="plane", wavelength=LAM, irradiance=1.0)
+    setup = double_slit(mono_src, x0=0.0, width=0.01, samples=100)
+    whole = engine.compute(setup, use_cache=False)
+    step = engine.monochromatic(setup, samples={})
+    assert np.array_equal(step.intensity, whole.intensity) and step.power_in == whole.power_in
+    broad = _with_source(
+        setup, Source(kind="plane", wavelength=LAM, spectrum="flat", bandwidth=10e-9)
+    )
+    with pytest.raises(ValueError, match="use compute"):
+        engine.monochromatic(broad)
+
+
 @pytest.mark.parametrize("block_bytes", [1, 3 * 8 * 12, 1 << 20])
 def test_block_sums_equal_the_plain_weighted_sums(block_bytes):
     # One screen per block (added in place), blocks of three with a part-filled last
