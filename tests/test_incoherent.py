@@ -7,7 +7,8 @@ import math
 
 import numpy as np
 import pytest
-from scipy import integrate, special
+from references import reference_coherence
+from scipy import special
 
 from compute import apertures, engine, incoherent, planning, snapshot
 from compute.engine import ResultCache
@@ -57,34 +58,6 @@ def visibility_at(x: np.ndarray, row: np.ndarray, x0: float, wavenumber: float) 
     return float(math.hypot(coef[2], coef[3]) / coef[0])
 
 
-def reference_coherence(kind: str, width: float, delta: float) -> float:
-    """|γ(Δ)| = |∫ S(λ) exp(2πiΔ/λ) dλ| of the model's spectrum, by scipy.integrate.quad."""
-    if kind == "gaussian":
-        s = width / (2 * math.sqrt(2 * math.log(2)))
-        lo, hi = LAM - 3.5 * s, LAM + 3.5 * s
-
-        def dens(lam):
-            return math.exp(-0.5 * ((lam - LAM) / s) ** 2)
-    else:
-        lo, hi = LAM - width / 2, LAM + width / 2
-
-        def dens(lam):
-            return 1.0
-
-    def part(f):
-        return integrate.quad(
-            lambda lam: dens(lam) * f(2 * np.pi * delta / lam),
-            lo,
-            hi,
-            limit=400,
-            epsabs=0,
-            epsrel=1e-10,
-        )[0]
-
-    norm = integrate.quad(dens, lo, hi, epsabs=0, epsrel=1e-12)[0]
-    return math.hypot(part(math.cos), part(math.sin)) / norm
-
-
 @pytest.mark.parametrize(
     ("kind", "width", "deltas"),
     [
@@ -103,7 +76,7 @@ def test_bandwidth_visibility_follows_the_degree_of_coherence(kind, width, delta
     for delta in deltas:
         x0 = float(delta * Z / SEP)
         measured = visibility_at(res.x, row, x0, wavenumber)
-        expected = reference_coherence(kind, width, float(path_difference(np.array(x0))))
+        expected = reference_coherence(kind, width, float(path_difference(np.array(x0))), LAM)
         # Visibility = |γ(Δ)| of the spectrum at the path difference Δ of the position:
         # Born & Wolf, Principles of Optics, 7th ed., ch. 10; Goodman, Statistical Optics,
         # ch. 5 (temporal coherence of Gaussian and rectangular lines).

@@ -76,16 +76,22 @@ def browser():
     pw.stop()
 
 
-@pytest.fixture
-def page(browser):
-    context = browser.new_context(viewport=VIEWPORT, accept_downloads=True)
+def new_page(context):
+    """A page of ``context`` with a 60 s default timeout that keeps its console errors
+    in ``page.console_errors``."""
     pg = context.new_page()
     pg.set_default_timeout(60_000)
     errors: list[str] = []
     pg.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
     pg.on("pageerror", lambda e: errors.append(f"page error: {e}"))
     pg.console_errors = errors
-    yield pg
+    return pg
+
+
+@pytest.fixture
+def page(browser):
+    context = browser.new_context(viewport=VIEWPORT, accept_downloads=True)
+    yield new_page(context)
     context.close()
 
 

@@ -13,7 +13,7 @@ import math
 import numpy as np
 import pytest
 from conftest import ROOT
-from scipy import integrate
+from references import reference_coherence
 
 from compute import engine, incoherent, snapshot
 from compute.model import Aperture, Camera, Numerics, Rect, Screen, Setup, Source
@@ -118,25 +118,6 @@ def _visibility(x: np.ndarray, row: np.ndarray, x0: float, wavenumber: float) ->
     return float(math.hypot(coef[2], coef[3]) / coef[0])
 
 
-def _gaussian_coherence(fwhm: float, delta: float) -> float:
-    """|γ(Δ)| = |∫ S(λ) exp(2πiΔ/λ) dλ| of the model's Gaussian (±3.5 σ), scipy.integrate.quad."""
-    s = fwhm / (2 * math.sqrt(2 * math.log(2)))
-    lo, hi = LAM - 3.5 * s, LAM + 3.5 * s
-
-    def part(f):
-        return integrate.quad(
-            lambda lam: math.exp(-0.5 * ((lam - LAM) / s) ** 2) * f(2 * math.pi * delta / lam),
-            lo,
-            hi,
-            limit=400,
-            epsabs=0,
-            epsrel=1e-10,
-        )[0]
-
-    norm = integrate.quad(lambda lam: math.exp(-0.5 * ((lam - LAM) / s) ** 2), lo, hi)[0]
-    return math.hypot(part(math.cos), part(math.sin)) / norm
-
-
 def _plotted_row(kit, st: dict) -> tuple[np.ndarray, np.ndarray]:
     """The computed cut along x that the browser draws (the one the state's sum names)."""
     lines = kit.page.evaluate(READ_X_LINES)
@@ -166,7 +147,8 @@ def test_a_bandwidth_set_on_the_page_lowers_the_visibility_as_the_coherence_says
     wavenumber = float(np.sum(route.weights / route.wavelengths))
     for delta in (5.2e-6, 13.2e-6, 21.9e-6):  # |γ| ≈ 0.9, 0.5, 0.15
         x0 = delta * Z / SEP
-        expected = _gaussian_coherence(12e-9, float(_path_difference(np.array(x0))))
+        path = float(_path_difference(np.array(x0)))
+        expected = reference_coherence("gaussian", 12e-9, path, LAM)
         # Visibility = |γ(Δ)|, the modulus of the complex degree of coherence of the
         # spectrum at the path difference Δ of the position (Born & Wolf, Principles of
         # Optics, 7th ed., ch. 10; Goodman, Statistical Optics, ch. 5, Gaussian line).

@@ -17,7 +17,15 @@ import sys
 import time
 
 import pytest
-from conftest import ARTIFACTS, VIEWPORT, open_dashboard, set_number, state, wait_state
+from conftest import (
+    ARTIFACTS,
+    VIEWPORT,
+    new_page,
+    open_dashboard,
+    set_number,
+    state,
+    wait_state,
+)
 from localserver import CHROMIUM, ROOT, free_port, start_server, stop_server
 
 from compute import snapshot
@@ -46,14 +54,8 @@ def contexts(browser):
 
     def new():
         ctx = browser.new_context(viewport=VIEWPORT)
-        pg = ctx.new_page()
-        pg.set_default_timeout(60_000)
-        errors: list[str] = []
-        pg.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
-        pg.on("pageerror", lambda e: errors.append(f"page error: {e}"))
-        pg.console_errors = errors
         made.append(ctx)
-        return pg
+        return new_page(ctx)
 
     yield new
     for ctx in made:
