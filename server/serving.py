@@ -29,14 +29,16 @@ import struct
 import sys
 import threading
 import time
+import unicodedata
 import webbrowser
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
-from urllib.parse import urlsplit
+from urllib.parse import urlencode, urlsplit
 
 import tornado.iostream
+import tornado.routing
 import tornado.web
 import tornado.websocket
 
@@ -45,13 +47,18 @@ from compute import snapshot
 __all__ = [
     "ALL_INTERFACES",
     "DEFAULT_MAX_SESSIONS",
+    "LOGIN_HOURS",
     "LOOPBACK",
     "MAX_MESSAGE_BYTES",
     "MIN_PASSWORD_CHARS",
+    "LoginBackoff",
+    "Logins",
+    "PageBindings",
     "ServeError",
     "SessionLimit",
     "generate_password",
     "lan_addresses",
+    "normal_password",
     "password_matches",
     "resolve_password",
     "safe_next",
@@ -78,10 +85,16 @@ MAX_MESSAGE_BYTES = 32 * 1024 * 1024
 #: Largest HTTP request body (the login form is a few hundred bytes).
 MAX_BODY_BYTES = 64 * 1024
 LOGIN_TEMPLATE = Path(__file__).resolve().parent / "assets" / "login.html"
-_USER = "colleague"  # one shared password, so one user name for the login cookie
-_COOKIE_DAYS = 1
+#: How long a login lasts at most: a working day. Signing out, or stopping the
+#: server, ends it sooner.
+LOGIN_HOURS = 12
+_USER = "colleague"  # one shared password, so one user name
+_COOKIE = "user"  # the signed login cookie; it holds the login's random id
 # Unambiguous characters for a password read off a screen (no 0/O, 1/l/I).
 _ALPHABET = "abcdefghjkmnpqrstuvwxyz23456789"
+# Unicode categories of characters nobody types into a password box: control and
+# format characters, line and paragraph separators, surrogates.
+_UNTYPEABLE = frozenset({"Cc", "Cf", "Cs", "Zl", "Zp"})
 _SIOCGIFADDR = 0x8915  # Linux ioctl: the IPv4 address of an interface
 
 
@@ -100,6 +113,11 @@ def generate_password(groups: int = 4, size: int = 4) -> str:
 def _check_password(password: str, origin: str) -> str:
     if not password:
         raise ServeError(f"{origin}: the password is empty")
+    if password != password.strip():
+        raise ServeError(
+            f"{origin}: the password begins or ends with a space, which the login page "
+            "cannot tell apart from none; remove the spaces at its ends"
+        )
     if len(password) < MIN_PASSWORD_CHARS:
         raise ServeError(
             f"{origin}: the password has {len(password)} characters; "
@@ -107,8 +125,10 @@ def _check_password(password: str, origin: str) -> str:
         )
     if len(password) > MAX_PASSWORD_CHARS:
         raise ServeError(f"{origin}: the password is longer than {MAX_PASSWORD_CHARS} characters")
-    if any(ord(c) < 32 or ord(c) == 127 for c in password):
-        raise ServeError(f"{origin}: the password contains control characters")
+    if any(unicodedata.category(c) in _UNTYPEABLE for c in password):
+        raise ServeError(
+            f"{origin}: the password contains control characters, which cannot be typed"
+        )
     return password
 
 
@@ -131,7 +151,11 @@ def _read_password_file(path: str) -> str:
         text = raw.decode("utf-8")
     except UnicodeDecodeError:
         raise ServeError(f"{origin}: {path!r} is not UTF-8 text") from None
-    first = text.removeprefix("\ufeff").splitlines()[0] if text.strip() else ""
+    # Only a newline ends the line (str.splitlines would also cut at \x1c, \x85, …,
+    # which are then refused as control characters instead of silently dropped).
+    first = text.removeprefix("\ufeff").split("\n", 1)[0].removesuffix("\r")
+    if not text.strip():
+        first = ""
     return _check_password(first, f"{origin} {path!r}")
 
 
@@ -154,9 +178,22 @@ def resolve_password(password: str | None, password_file: str | None) -> tuple[s
     return generate_password(), True
 
 
+def normal_password(text: str) -> str:
+    """The form in which passwords are compared: Unicode NFC (an "é" typed as one
+    character or as e + accent is the same password); nothing is stripped."""
+    return unicodedata.normalize("NFC", text)
+
+
 def password_matches(given: str, expected: str) -> bool:
-    """Compare in constant time (the time taken does not depend on where they differ)."""
-    return hmac.compare_digest(given.encode("utf-8"), expected.encode("utf-8"))
+    """Compare in constant time (the time taken does not depend on where they differ).
+
+    Both sides are put in :func:`normal_password` form; a given password with a
+    character that cannot be typed (a control character, say a NUL) never matches.
+    """
+    if any(unicodedata.category(c) in _UNTYPEABLE for c in given):
+        return False
+    a, b = normal_password(given), normal_password(expected)
+    return hmac.compare_digest(a.encode("utf-8"), b.encode("utf-8"))
 
 
 # ------------------------------------------------------------------- addresses
@@ -281,34 +318,220 @@ def render_login(message: str = "", *, refused: bool = False, next_url: str = "/
     return page
 
 
-class _FailedLogins:
-    """Wrong passwords per client address; a burst locks that address out for a while."""
+class Logins:
+    """The server-side record of the logins of this start (nothing is written to disk).
 
-    def __init__(self, limit: int = 10, window: float = 60.0):
-        self.limit, self.window = limit, window
+    A login is a random id held in the signed login cookie. It is valid while it
+    is recorded here: for at most ``lifetime`` seconds after the password was
+    given, until the browser signs out, or until the server stops (a restart, and
+    so a new password, ends every login). A copied cookie is worth nothing once
+    its login has ended.
+    """
+
+    def __init__(self, lifetime: float = LOGIN_HOURS * 3600.0, maximum: int = 4096):
+        self.lifetime, self.maximum = float(lifetime), int(maximum)
         self._lock = threading.Lock()
-        self._times: dict[str, list[float]] = {}
+        self._started: dict[str, float] = {}
 
-    def locked(self, client: str) -> bool:
+    def open(self) -> str:
+        """Record a new login and return its id."""
+        login = secrets.token_urlsafe(24)
         now = time.monotonic()
         with self._lock:
-            recent = [t for t in self._times.get(client, []) if now - t < self.window]
-            self._times[client] = recent
-            return len(recent) >= self.limit
+            self._forget_ended(now)
+            while len(self._started) >= self.maximum:  # the oldest login ends first
+                del self._started[min(self._started, key=self._started.__getitem__)]
+            self._started[login] = now
+        return login
+
+    def valid(self, login: str | None) -> bool:
+        if not login:
+            return False
+        with self._lock:
+            started = self._started.get(login)
+            if started is None:
+                return False
+            if time.monotonic() - started >= self.lifetime:
+                del self._started[login]
+                return False
+            return True
+
+    def close(self, login: str | None) -> None:
+        """End ``login`` (signing out); unknown ids are ignored."""
+        with self._lock:
+            self._started.pop(login or "", None)
+
+    def __len__(self) -> int:
+        with self._lock:
+            self._forget_ended(time.monotonic())
+            return len(self._started)
+
+    def _forget_ended(self, now: float) -> None:
+        for login in [k for k, t in self._started.items() if now - t >= self.lifetime]:
+            del self._started[login]
+
+
+class LoginBackoff:
+    """Wrong passwords from one address slow that address down; none locks it out.
+
+    The first ``free`` wrong passwords from an address within ``forget`` seconds
+    cost nothing but the usual half-second pause. After that, every further
+    password from that address (right or wrong) is compared only ``delay``
+    seconds after the last wrong one, the delay doubling from ``base`` with each
+    wrong password up to ``cap``. Attempts from one address are compared one at
+    a time, so parallel requests do not multiply the rate; at most ``queue``
+    wait at once, and more are answered "try again in a few seconds".
+
+    So the right password is never refused because of someone else's guesses on
+    the same address (a shared computer, a NAT); it waits at most ``cap`` seconds
+    per attempt ahead of it, while guessing from that address is held to one
+    password per ``cap`` seconds.
+    """
+
+    def __init__(
+        self,
+        free: int = 10,
+        base: float = 1.0,
+        cap: float = 30.0,
+        forget: float = 900.0,
+        queue: int = 8,
+    ):
+        self.free, self.base, self.cap = int(free), float(base), float(cap)
+        self.forget, self.queue = float(forget), int(queue)
+        self._lock = threading.Lock()
+        self._failures: dict[str, list[float]] = {}
+        self._waiting: dict[str, int] = {}
+        self._turns: dict[str, asyncio.Lock] = {}
+
+    def _recent(self, client: str, now: float) -> list[float]:
+        recent = [t for t in self._failures.get(client, []) if now - t < self.forget]
+        if recent:
+            self._failures[client] = recent
+        else:
+            self._failures.pop(client, None)
+        return recent
+
+    def delay(self, client: str) -> float:
+        """Seconds between the last wrong password from ``client`` and its next comparison."""
+        with self._lock:
+            n = len(self._recent(client, time.monotonic()))
+        if n < self.free:
+            return 0.0
+        return min(self.cap, self.base * 2.0 ** (n - self.free))
+
+    def wait(self, client: str) -> float:
+        """Seconds from now until a password from ``client`` may be compared."""
+        delay = self.delay(client)
+        with self._lock:
+            recent = self._recent(client, time.monotonic())
+            if not recent or delay <= 0.0:
+                return 0.0
+            return max(0.0, recent[-1] + delay - time.monotonic())
 
     def record(self, client: str) -> None:
+        """A wrong password came from ``client``."""
         with self._lock:
-            self._times.setdefault(client, []).append(time.monotonic())
+            self._failures.setdefault(client, []).append(time.monotonic())
 
-    def clear(self, client: str) -> None:
+    def enter(self, client: str) -> asyncio.Lock | None:
+        """Queue an attempt from ``client``: its turn lock, or None when too many wait."""
         with self._lock:
-            self._times.pop(client, None)
+            if self._waiting.get(client, 0) >= self.queue:
+                return None
+            self._waiting[client] = self._waiting.get(client, 0) + 1
+            return self._turns.setdefault(client, asyncio.Lock())
+
+    def leave(self, client: str) -> None:
+        with self._lock:
+            left = self._waiting.get(client, 1) - 1
+            if left > 0:
+                self._waiting[client] = left
+            else:
+                self._waiting.pop(client, None)
+                self._turns.pop(client, None)
+
+
+class PageBindings:
+    """Which login opened which Bokeh session, and which sessions have a connection.
+
+    A page's session id (signed by Bokeh with the per-start secret) may be
+    attached by one websocket connection, from the login that loaded the page:
+    a replayed id, or one used with another login, is refused. Signing out
+    closes the connections of that login.
+    """
+
+    def __init__(self, unattached_seconds: float = 900.0):
+        self.unattached_seconds = float(unattached_seconds)
+        self._lock = threading.Lock()
+        self._pages: dict[str, tuple[str, float]] = {}  # session id -> (login, issued)
+        self._sockets: dict[str, set[Any]] = {}  # login -> open connections
+
+    def bind(self, session_id: str, login: str) -> None:
+        now = time.monotonic()
+        with self._lock:
+            stale = [s for s, (_, t) in self._pages.items() if now - t > self.unattached_seconds]
+            for sid in stale:
+                del self._pages[sid]
+            self._pages[session_id] = (login, now)
+
+    def may_attach(self, session_id: str, login: str) -> bool:
+        with self._lock:
+            bound = self._pages.get(session_id)
+            return bound is not None and hmac.compare_digest(bound[0], login)
+
+    def attach(self, session_id: str, login: str, connection: Any) -> bool:
+        """Take the page's one attachment; False when it is gone or not this login's."""
+        with self._lock:
+            bound = self._pages.get(session_id)
+            if bound is None or not hmac.compare_digest(bound[0], login):
+                return False
+            del self._pages[session_id]
+            self._sockets.setdefault(login, set()).add(connection)
+            return True
+
+    def detach(self, login: str, connection: Any) -> None:
+        with self._lock:
+            held = self._sockets.get(login)
+            if held is not None:
+                held.discard(connection)
+                if not held:
+                    del self._sockets[login]
+
+    def connections(self, login: str) -> list[Any]:
+        with self._lock:
+            return list(self._sockets.get(login, ()))
 
 
 @dataclass
 class _LoginConfig:
     password: str
-    failures: _FailedLogins
+    backoff: LoginBackoff
+    logins: Logins
+    pages: PageBindings
+
+
+def _login_of(handler: tornado.web.RequestHandler, logins: Logins) -> str | None:
+    """The login id of the request when that login is still valid, else None."""
+    raw = handler.get_secure_cookie(_COOKIE, max_age_days=LOGIN_HOURS / 24.0)
+    if raw is None:
+        return None
+    try:
+        login = raw.decode("ascii")
+    except UnicodeDecodeError:
+        return None
+    return login if logins.valid(login) else None
+
+
+def _typed_password(handler: tornado.web.RequestHandler) -> str | None:
+    """The password field exactly as sent (Tornado's arguments strip spaces and
+    replace control characters, which would let ``password\\x00`` pass)."""
+    values = handler.request.body_arguments.get("password")
+    if not values:
+        return ""
+    try:
+        return values[0].decode("utf-8")
+    except UnicodeDecodeError:
+        return None
 
 
 class LoginHandler(tornado.web.RequestHandler):
@@ -322,36 +545,51 @@ class LoginHandler(tornado.web.RequestHandler):
     async def post(self) -> None:
         client = self.request.remote_ip or "?"
         next_url = safe_next(self.get_body_argument("next", "/"))
-        if self.config.failures.locked(client):
+        backoff = self.config.backoff
+        turn = backoff.enter(client)
+        if turn is None:
             self.set_status(429)
             self.write(
                 render_login(
-                    "Too many wrong passwords from this computer; wait a minute and try again.",
+                    "Many passwords are being tried from this computer right now; "
+                    "try again in a few seconds.",
                     refused=True,
                     next_url=next_url,
                 )
             )
             return
-        given = self.get_body_argument("password", "")
-        if password_matches(given, self.config.password):
-            self.config.failures.clear(client)
-            self.set_secure_cookie(
-                "user",
-                _USER,
-                expires_days=_COOKIE_DAYS,
-                httponly=True,
-                samesite="Lax",
-                path="/",
-            )
-            self.redirect(next_url)
-            return
-        self.config.failures.record(client)
-        log.warning("a wrong password was given from %s", client)  # never the password
-        await asyncio.sleep(0.5)  # slows guessing; other requests carry on meanwhile
+        try:
+            async with turn:
+                wait = backoff.wait(client)
+                if wait > 0:
+                    await asyncio.sleep(wait)  # slows guessing; other requests carry on
+                given = _typed_password(self)
+                if given is not None and password_matches(given, self.config.password):
+                    login = self.config.logins.open()
+                    self.set_secure_cookie(
+                        _COOKIE,
+                        login,
+                        expires_days=LOGIN_HOURS / 24.0,
+                        httponly=True,
+                        samesite="Lax",
+                        path="/",
+                    )
+                    self.redirect(next_url)
+                    return
+                backoff.record(client)
+                log.warning("a wrong password was given from %s", client)  # never the password
+                await asyncio.sleep(0.5)
+        finally:
+            backoff.leave(client)
         self.set_status(401)
+        delay = backoff.delay(client)
+        later = (
+            f" Further attempts from this computer wait {delay:.0f} s each." if delay >= 1 else ""
+        )
         self.write(
             render_login(
-                "That password is not right. Ask the person who started fringebench for it.",
+                "That password is not right. Ask the person who started fringebench for it."
+                + later,
                 refused=True,
                 next_url=next_url,
             )
@@ -359,57 +597,165 @@ class LoginHandler(tornado.web.RequestHandler):
 
 
 class LogoutHandler(tornado.web.RequestHandler):
-    """``/logout``: forget the login cookie and show the login page again."""
+    """``/logout``: end the login on the server, close its pages, show the login page."""
+
+    config: _LoginConfig  # set on the subclass that serve() makes
 
     def get(self) -> None:
-        self.clear_cookie("user", path="/")
+        login = _login_of(self, self.config.logins)
+        if login is not None:
+            self.config.logins.close(login)
+            for connection in self.config.pages.connections(login):
+                connection.close(1000, "signed out")
+        self.clear_cookie(_COOKIE, path="/")
         self.clear_cookie("id_token", path="/")
         self.write(render_login("You have signed out."))
 
 
-class _LoginFirst:
-    """Mixin: answer 403 before the handler runs when the request carries no login."""
+def _module_name_is_loaded(path: str) -> bool:
+    """``/components/<module>/...`` names a module already imported (never a new import)."""
+    module = path.split("/", 1)[0]
+    parts = module.split(".")
+    return all(p.isidentifier() for p in parts) and module in sys.modules
 
-    async def prepare(self) -> None:
-        pending = super().prepare()  # type: ignore[misc]
+
+def _guard(handler: type, config: _LoginConfig) -> type:
+    """``handler`` made to refuse requests without a valid login before it runs.
+
+    A page (Bokeh's document and root handlers) sends the browser to the login
+    page; everything else answers 403. The app page records which login opened
+    each session, and the websocket accepts a session only from that login, once.
+    """
+    from bokeh.server.views.doc_handler import DocHandler
+    from bokeh.server.views.root_handler import RootHandler
+    from bokeh.util.token import get_session_id
+    from panel.io.server import ComponentResourceHandler
+
+    is_page = issubclass(handler, (DocHandler, RootHandler))
+    is_socket = issubclass(handler, tornado.websocket.WebSocketHandler)
+    members: dict[str, Any] = {}
+
+    async def prepare(self: Any) -> None:
+        login = _login_of(self, config.logins)
+        if login is None:
+            if is_page and self.request.method in ("GET", "HEAD"):
+                url = "./login" if self.request.path == "/" else "/login"
+                self.redirect(url + "?" + urlencode({"next": self.request.uri}))
+                return
+            raise tornado.web.HTTPError(403, "log in first")
+        if is_socket:
+            offered = self.request.headers.get("Sec-WebSocket-Protocol", "")
+            parts = [p.strip() for p in offered.split(",")]
+            try:
+                session_id = get_session_id(parts[1]) if len(parts) == 2 else ""
+            except Exception:  # a malformed token: not a session of ours
+                session_id = ""
+            if not session_id or not config.pages.may_attach(session_id, login):
+                raise tornado.web.HTTPError(403, "not a page of this login")
+            self._fb_login, self._fb_session = login, session_id
+        pending = super(guarded, self).prepare()
         if pending is not None:
             await pending
-        if not self.current_user:  # type: ignore[attr-defined]
-            raise tornado.web.HTTPError(403, "log in first")
+
+    members["prepare"] = prepare
+
+    if is_socket:
+
+        def open(self: Any, *args: Any, **kwargs: Any) -> Any:
+            if not config.pages.attach(self._fb_session, self._fb_login, self):
+                self.close(1008, "this page is already connected")
+                return None
+            return super(guarded, self).open(*args, **kwargs)
+
+        def on_close(self: Any) -> None:
+            config.pages.detach(getattr(self, "_fb_login", ""), self)
+            super(guarded, self).on_close()
+
+        members["open"], members["on_close"] = open, on_close
+
+    if issubclass(handler, DocHandler):
+
+        async def get_session(self: Any) -> Any:
+            session = await super(guarded, self).get_session()
+            login = _login_of(self, config.logins)
+            if login is not None:
+                config.pages.bind(str(session.id), login)
+            return session
+
+        members["get_session"] = get_session
+
+    if issubclass(handler, ComponentResourceHandler):
+
+        def parse_url_path(self: Any, url_path: str) -> str:
+            if not _module_name_is_loaded(url_path):
+                raise tornado.web.HTTPError(404, "no such component")
+            try:
+                return super(guarded, self).parse_url_path(url_path)
+            except tornado.web.HTTPError:
+                raise
+            except Exception:  # a malformed path is not found, never a traceback
+                raise tornado.web.HTTPError(404, "no such component") from None
+
+        members["parse_url_path"] = parse_url_path
+
+    guarded = type(f"LoginFirst{handler.__name__}", (handler,), members)
+    return guarded
 
 
-def _guard_routes() -> None:
-    """Make the embedding script (``/autoload.js``) refuse requests without a login.
+def _guard_every_route(app: tornado.web.Application, config: _LoginConfig) -> int:
+    """Put every route of ``app`` but the login and logout pages behind the login.
 
-    Its handler would otherwise fail on them (a traceback in the log, though no
-    app is served). The route table is the module-level one that Panel itself
-    sets up for every application.
+    Returns the number of routes guarded. The routes are those Bokeh and Panel
+    registered (pages, websocket, static files, favicon, component resources, …);
+    a route added by a later version is guarded the same way.
     """
-    from bokeh.server.urls import per_app_patterns
+    open_routes = (LoginHandler, LogoutHandler)
+    count = 0
+    routers = [app.default_router]
+    while routers:
+        router = routers.pop()
+        for rule in getattr(router, "rules", []):
+            target = rule.target
+            if isinstance(target, tornado.routing.Router):
+                routers.append(target)
+            elif isinstance(target, type) and issubclass(target, tornado.web.RequestHandler):
+                if issubclass(target, open_routes) or getattr(target, "_fb_guarded", False):
+                    continue
+                rule.target = _guard(target, config)
+                rule.target._fb_guarded = True
+                count += 1
+    return count
 
-    for i, (route, handler, *rest) in enumerate(per_app_patterns):
-        if route == "/autoload.js" and not issubclass(handler, _LoginFirst):
-            guarded = type("LoginFirstAutoloadJsHandler", (_LoginFirst, handler), {})
-            per_app_patterns[i] = (route, guarded, *rest)
 
+def _auth_provider(config: _LoginConfig) -> Any:
+    """Bokeh's auth provider over our login record, login and logout pages."""
+    from bokeh.server.auth_provider import AuthProvider
 
-def _auth_provider(password: str) -> Any:
-    """Panel's basic-auth provider with our login and logout pages."""
-    from panel.auth import BasicAuthProvider
+    login_page = type("SharedLoginHandler", (LoginHandler,), {"config": config})
+    logout_page = type("SharedLogoutHandler", (LogoutHandler,), {"config": config})
 
-    handler = type("SharedLoginHandler", (LoginHandler,), {})
-    handler.config = _LoginConfig(password, _FailedLogins())
+    class PasswordAuthProvider(AuthProvider):
+        @property
+        def get_user(self) -> Callable[[Any], str | None]:
+            return lambda handler: _USER if _login_of(handler, config.logins) else None
 
-    class PasswordAuthProvider(BasicAuthProvider):
+        @property
+        def login_url(self) -> str:
+            return "/login"
+
         @property
         def login_handler(self) -> type:
-            return handler
+            return login_page
+
+        @property
+        def logout_url(self) -> str:
+            return "/logout"
 
         @property
         def logout_handler(self) -> type:
-            return LogoutHandler
+            return logout_page
 
-    return PasswordAuthProvider(login_endpoint="/login", logout_endpoint="/logout")
+    return PasswordAuthProvider()
 
 
 # -------------------------------------------------------------------- sessions
@@ -654,10 +1000,18 @@ def serve(
         "http_server_kwargs": {"max_body_size": MAX_BODY_BYTES},
         "num_procs": 1,
     }
+    login_config: _LoginConfig | None = None
     if share:
+        login_config = _LoginConfig(secret or "", LoginBackoff(), Logins(), PageBindings())
         options["cookie_secret"] = secrets.token_hex(32)  # new at every start
-        options["auth_provider"] = _auth_provider(secret or "")
-        _guard_routes()
+        options["auth_provider"] = _auth_provider(login_config)
+        # Session ids signed with a second per-start secret, so that only pages this
+        # server handed out can connect; the page's session token carries neither
+        # the cookies nor the Cookie header (the login stays out of reach of scripts).
+        options["sign_sessions"] = True
+        options["secret_key"] = secrets.token_bytes(32)
+        options["include_cookies"] = []
+        options["exclude_headers"] = ["Cookie", "Authorization"]
     options.update(kw)
     try:
         server = pn.serve(
@@ -675,6 +1029,8 @@ def serve(
         if exc.errno == errno.EADDRINUSE:
             raise ServeError(f"port {port} is in use; choose another with --port") from None
         raise ServeError(f"cannot listen on {bind}:{port} ({exc.strerror or exc})") from None
+    if login_config is not None:
+        _guard_every_route(server._tornado, login_config)  # Bokeh's Tornado application
     url = (
         f"http://{LOOPBACK}:{port}/"
         if bind in (ALL_INTERFACES, LOOPBACK)

@@ -720,7 +720,7 @@ class SessionSharing:
         self.status = _pane("", "fb-share-status")
         self.links = _pane("", "fb-follow-links-pane")
         self.links.visible = False
-        self.share_button.on_click(lambda _e: self.publish())
+        self.share_button.on_click(self._share_pressed)
         self.stop_button.on_click(lambda _e: self.unpublish())
         self.detach_button.on_click(lambda _e: self.detach("This is now your own copy."))
         self._own = {id(w) for w in (self.share_button, self.stop_button, self.detach_button)}
@@ -760,6 +760,17 @@ class SessionSharing:
         self._host_changed()
         self._show_status()
         return pub
+
+    def _share_pressed(self, _event: Any = None) -> None:
+        """The share button: a follower (whose button is hidden) gets a message, no error."""
+        if self.link is not None:
+            self.dashboard.notify(
+                "warning",
+                "This session follows a colleague's and cannot be shared; "
+                "press Make my own copy first.",
+            )
+            return
+        self.publish()
 
     def unpublish(self, why: str = "the host stopped sharing") -> None:
         """Stop sharing; followers keep what they see as their own copy."""

@@ -8,13 +8,16 @@ Nothing here sends a packet to any address but 127.0.0.1.
 from __future__ import annotations
 
 import base64
+import email.utils
 import hmac
 import http.client
 import ipaddress
+import json
 import os
 import re
 import shutil
 import socket
+import struct
 import subprocess
 import threading
 import time
@@ -175,18 +178,6 @@ def test_the_login_page_escapes_what_it_shows():
     assert 'value="/?a=&quot;b&quot;"' in page
     assert "{{" not in page
     assert 'type="password"' in page
-
-
-def test_a_burst_of_wrong_passwords_locks_that_address_out_for_a_while(monkeypatch):
-    now = [1000.0]
-    monkeypatch.setattr(serving.time, "monotonic", lambda: now[0])
-    failures = serving._FailedLogins(limit=3, window=60.0)
-    for _ in range(3):
-        assert not failures.locked("192.0.2.9")
-        failures.record("192.0.2.9")
-    assert failures.locked("192.0.2.9") and not failures.locked("192.0.2.10")
-    now[0] += 61.0
-    assert not failures.locked("192.0.2.9")  # the window has passed
 
 
 def test_cli_refuses_a_password_without_share_and_a_short_one(capsys):
@@ -545,6 +536,16 @@ def test_a_follower_cannot_change_anything_until_it_detaches():
     assert follower.setup.screen.distance == 3.0  # detached: no more mirroring
 
 
+def test_a_follower_pressing_the_hidden_share_button_gets_a_message_not_an_error():
+    _host, host_share, follower, follower_share = _pair()
+    assert not follower_share.share_button.visible
+    follower_share.share_button.clicks += 1  # a forced click on the hidden button
+    assert follower.messages[-1][0] == "warning"
+    assert "cannot be shared" in follower.messages[-1][1]
+    assert follower_share.publication is None and follower_share.link is not None
+    assert host_share.followers == 1  # still following, nothing else changed
+
+
 def test_when_the_host_stops_sharing_followers_keep_an_own_copy():
     _host, host_share, follower, follower_share = _pair()
     host_share.unpublish()
@@ -655,6 +656,84 @@ def _upgrade(port: int, origin: str, cookie: str | None, token: str | None = Non
         return s.recv(4096).split(b"\r\n")[0].decode()
 
 
+def _cookie_of(resp) -> str:
+    return resp.getheader("Set-Cookie").split(";")[0]
+
+
+def _page_token(port: int, cookie: str) -> str:
+    """The Bokeh session token of a freshly loaded app page."""
+    resp, data = _request(port, "GET", "/", headers={"Cookie": cookie})
+    assert resp.status == 200
+    return re.search(rb'"token":\s*"([^"]+)"', data).group(1).decode()
+
+
+def _token_payload(token: str) -> dict:
+    """What any script in the page can read out of its session token."""
+    import json
+    import zlib
+
+    def b64(text: str) -> bytes:
+        return base64.urlsafe_b64decode(text + "=" * (-len(text) % 4))
+
+    payload = json.loads(b64(token.split(".")[0]))
+    if "__bk__zlib_" in payload:
+        payload.update(json.loads(zlib.decompress(b64(payload.pop("__bk__zlib_")))))
+    return payload
+
+
+def _open_socket(port: int, cookie: str, token: str) -> socket.socket:
+    """An accepted websocket on /ws, left open for the caller."""
+    key = base64.b64encode(os.urandom(16)).decode()
+    lines = [
+        "GET /ws HTTP/1.1",
+        f"Host: 127.0.0.1:{port}",
+        "Upgrade: websocket",
+        "Connection: Upgrade",
+        f"Sec-WebSocket-Key: {key}",
+        "Sec-WebSocket-Version: 13",
+        f"Origin: http://127.0.0.1:{port}",
+        f"Sec-WebSocket-Protocol: bokeh, {token}",
+        f"Cookie: {cookie}",
+    ]
+    s = socket.create_connection(("127.0.0.1", port), timeout=30)
+    s.sendall(("\r\n".join(lines) + "\r\n\r\n").encode())
+    head = b""
+    while b"\r\n\r\n" not in head:
+        head += s.recv(1)
+    assert b" 101 " in head.split(b"\r\n")[0], head
+    return s
+
+
+def _closed_by_server(s: socket.socket, seconds: float = 20.0) -> bool:
+    """Read frames until the server sends a close frame (True) or the time is up."""
+    s.settimeout(seconds)
+
+    def exactly(n: int) -> bytes:
+        got = b""
+        while len(got) < n:
+            chunk = s.recv(n - len(got))
+            if not chunk:
+                raise ConnectionError("closed without a close frame")
+            got += chunk
+        return got
+
+    try:
+        while True:
+            first, second = exactly(2)
+            size = second & 0x7F
+            if size == 126:
+                size = struct.unpack(">H", exactly(2))[0]
+            elif size == 127:
+                size = struct.unpack(">Q", exactly(8))[0]
+            exactly(size)
+            if first & 0x0F == 0x8:
+                return True
+    except TimeoutError:
+        return False
+    except ConnectionError:
+        return True
+
+
 @pytest.fixture(scope="module")
 def shared_server():
     port = free_port()
@@ -663,6 +742,7 @@ def shared_server():
     log = stop_server(proc)
     assert PASSWORD not in log  # never logged or printed
     assert "Traceback" not in log, log[-3000:]
+    assert "Beautiful is better than ugly" not in log  # the module `this` was never imported
 
 
 def test_without_the_password_every_page_is_the_login_page(shared_server):
@@ -717,7 +797,204 @@ def test_websocket_upgrades_from_a_foreign_origin_are_refused(shared_server):
         assert " 403 " in _upgrade(port, origin, cookie, token), origin
     assert " 403 " in _upgrade(port, f"http://127.0.0.1:{port}", None, token)  # no login
     assert " 101 " in _upgrade(port, f"http://127.0.0.1:{port}", cookie, token)
-    assert " 101 " in _upgrade(port, f"http://localhost:{port}", cookie, token)
+    assert " 101 " in _upgrade(port, f"http://localhost:{port}", cookie, _page_token(port, cookie))
+
+
+# Defect: routes outside the login (Panel's /components/<module>/… imported any module).
+@pytest.mark.parametrize(
+    "path",
+    [
+        "/components/this/x/__css__/y",
+        "/components/..%2F..%2Fetc/x/__css__/y",
+        "/components/%2e%2e/x/__css__/y",
+        "/components/panel/x/__css__/y",
+        "/static/js/bokeh.min.js",
+        "/static/extensions/panel/css/loading.css",
+        "/favicon.ico",
+        "/metadata",
+        "/autoload.js?bokeh-autoload-element=x",
+        "/ws",
+    ],
+)
+def test_nothing_but_the_login_page_answers_without_a_login(shared_server, path):
+    port, _ = shared_server
+    resp, data = _request(port, "GET", path)
+    assert resp.status == 403, (path, resp.status)
+    assert len(data) < 200 and b"bokeh" not in data.lower()
+
+
+def test_the_login_page_needs_nothing_else_from_the_server(shared_server):
+    port, _ = shared_server
+    for path in ("/login", "/logout"):
+        resp, data = _request(port, "GET", path)
+        assert resp.status == 200
+        page = data.decode()
+        # No stylesheet, script or image from this server: the page is self-contained
+        # (its icon is inline, so the browser does not ask for /favicon.ico either).
+        assert not re.search(r'(src|href)="/', page), path
+        assert 'rel="icon" href="data:' in page
+
+
+def test_a_malformed_component_path_is_not_found_even_logged_in(shared_server):
+    port, _ = shared_server
+    cookie = _cookie_of(_login(port, PASSWORD)[0])
+    for path in ("/components/..%2F..%2Fetc/x/__css__/y", "/components/%2e%2e/x/__css__/y"):
+        resp, _ = _request(port, "GET", path, headers={"Cookie": cookie})
+        assert resp.status == 404, (path, resp.status)
+    # A module the server has not imported is not imported on request.
+    resp, _ = _request(port, "GET", "/components/this/x/__css__/y", headers={"Cookie": cookie})
+    assert resp.status == 404
+
+
+# Defect: a copied cookie stayed valid for a day after signing out.
+def test_signing_out_ends_the_login_and_closes_its_pages(shared_server):
+    port, _ = shared_server
+    resp, _ = _login(port, PASSWORD)
+    header = resp.getheader("Set-Cookie")
+    expires = re.search(r"expires=([^;]+)", header).group(1)
+    left = email.utils.parsedate_to_datetime(expires).timestamp() - time.time()
+    assert 0 < left <= serving.LOGIN_HOURS * 3600 + 60  # a working day, not more
+    cookie, other = header.split(";")[0], _cookie_of(_login(port, PASSWORD)[0])
+    assert cookie != other  # every login is its own
+    ws = _open_socket(port, cookie, _page_token(port, cookie))
+    try:
+        resp, data = _request(port, "GET", "/logout", headers={"Cookie": cookie})
+        assert resp.status == 200 and "signed out" in data.decode()
+        assert _closed_by_server(ws)  # the open page of that login is closed
+    finally:
+        ws.close()
+    for path in ("/", "/static/js/bokeh.min.js"):
+        resp, _ = _request(port, "GET", path, headers={"Cookie": cookie})  # the copied cookie
+        assert resp.status in (302, 403), (path, resp.status)
+    assert " 403 " in _upgrade(port, f"http://127.0.0.1:{port}", cookie, "x")
+    resp, _ = _request(port, "GET", "/", headers={"Cookie": other})
+    assert resp.status == 200  # another login is untouched
+
+
+def test_a_login_ends_after_its_lifetime(monkeypatch):
+    now = [5000.0]
+    monkeypatch.setattr(serving.time, "monotonic", lambda: now[0])
+    logins = serving.Logins(lifetime=3600.0, maximum=3)
+    first = logins.open()
+    assert logins.valid(first) and not logins.valid("made-up") and not logins.valid(None)
+    now[0] += 3599.0
+    assert logins.valid(first)
+    now[0] += 1.0
+    assert not logins.valid(first)
+    kept = [logins.open() for _ in range(4)]  # at most 3 recorded: the oldest goes
+    assert not logins.valid(kept[0]) and all(logins.valid(k) for k in kept[1:])
+    logins.close(kept[1])
+    assert not logins.valid(kept[1]) and len(logins) == 2
+
+
+# Defect: the login cookie was copied into the page's unsigned session token.
+def test_the_page_holds_no_login_and_its_session_attaches_once(shared_server):
+    port, _ = shared_server
+    cookie = _cookie_of(_login(port, PASSWORD)[0])
+    _, data = _request(port, "GET", "/", headers={"Cookie": cookie})
+    value = cookie.split("=", 1)[1]
+    assert value.encode() not in data  # neither the cookie nor any part of it
+    token = re.search(rb'"token":\s*"([^"]+)"', data).group(1).decode()
+    payload = _token_payload(token)
+    assert payload["cookies"] == {}
+    assert not {k.lower() for k in payload["headers"]} & {"cookie", "authorization"}
+    assert value not in json.dumps(payload)
+    assert "." in payload["session_id"]  # a signed session id (id.signature)
+    origin = f"http://127.0.0.1:{port}"
+    ws = _open_socket(port, cookie, token)
+    try:
+        assert " 403 " in _upgrade(port, origin, cookie, token)  # a replay of the same page
+    finally:
+        ws.close()
+    assert " 403 " in _upgrade(port, origin, cookie, token)  # not after it closed either
+    # Another login cannot take a page it did not load.
+    stranger = _cookie_of(_login(port, PASSWORD)[0])
+    assert " 403 " in _upgrade(port, origin, stranger, _page_token(port, cookie))
+    # A made-up (unsigned) session id is refused.
+    forged = (
+        base64.urlsafe_b64encode(
+            json.dumps({"session_id": "A" * 44, "session_expiry": time.time() + 300}).encode()
+        )
+        .decode()
+        .rstrip("=")
+    )
+    assert " 403 " in _upgrade(port, origin, cookie, forged)
+
+
+# Defect: the form stripped spaces and control characters, so "password\x00" logged in.
+def test_only_the_exact_password_logs_in(shared_server):
+    port, _ = shared_server
+    for given in (PASSWORD + "\x00", " " + PASSWORD, PASSWORD + " ", PASSWORD + "\t"):
+        resp, _ = _login(port, given)
+        assert resp.status == 401, repr(given)
+    assert _login(port, PASSWORD)[0].status == 302
+
+
+@pytest.mark.parametrize(
+    ("content", "words"),
+    [
+        ("  lab-bench-4021\n", "begins or ends with a space"),
+        ("lab-bench-4021 \n", "begins or ends with a space"),
+        ("lab-bench-4021\x00\n", "control characters"),
+        ("lab-bench\x1c4021\n", "control characters"),
+        ("lab-bench\u20284021\n", "control characters"),
+    ],
+)
+def test_a_password_file_that_cannot_be_typed_is_refused_at_start(tmp_path, capsys, content, words):
+    f = tmp_path / "pw.txt"
+    f.write_text(content, encoding="utf-8")
+    with pytest.raises(serving.ServeError, match=words):
+        serving.resolve_password(None, str(f))
+    assert cli.main(["serve", "--share", "--password-file", str(f)]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: --password-file") and words in err
+
+
+def test_passwords_are_compared_in_one_unicode_form():
+    composed, decomposed = "caf\u00e9-bench-1", "cafe\u0301-bench-1"
+    assert serving.password_matches(decomposed, composed)
+    assert serving.password_matches(composed, decomposed)
+    assert not serving.password_matches(composed + "\x00", composed)
+
+
+# Defect: ten wrong passwords locked everyone on that address out.
+def test_wrong_passwords_slow_an_address_down_without_locking_it_out(monkeypatch):
+    now = [1000.0]
+    monkeypatch.setattr(serving.time, "monotonic", lambda: now[0])
+    backoff = serving.LoginBackoff(free=3, base=1.0, cap=8.0, forget=600.0)
+    delays = []
+    for _ in range(8):
+        delays.append(backoff.delay("192.0.2.9"))
+        backoff.record("192.0.2.9")
+    assert delays == [0, 0, 0, 1, 2, 4, 8, 8]  # doubling, then capped
+    assert backoff.wait("192.0.2.9") == 8.0 and backoff.wait("192.0.2.10") == 0.0
+    now[0] += 5.0
+    assert backoff.wait("192.0.2.9") == 3.0  # counted from the last wrong password
+    now[0] += 601.0
+    assert backoff.delay("192.0.2.9") == 0.0  # forgotten after a while
+
+
+def test_at_most_a_few_attempts_from_one_address_wait_at_once():
+    backoff = serving.LoginBackoff(queue=2)
+    assert backoff.enter("192.0.2.9") is backoff.enter("192.0.2.9") is not None
+    assert backoff.enter("192.0.2.9") is None and backoff.enter("192.0.2.10") is not None
+    backoff.leave("192.0.2.9")
+    assert backoff.enter("192.0.2.9") is not None
+
+
+def test_the_right_password_still_logs_in_after_a_burst_of_wrong_ones():
+    port = free_port()
+    proc = _start(port, "--share", "--address", "127.0.0.1", "--password", PASSWORD)
+    try:
+        for _ in range(11):  # over the ten that used to lock the address out
+            assert _login(port, "not-" + PASSWORD)[0].status == 401
+        resp, data = _login(port, "also-not-" + PASSWORD)
+        assert resp.status == 401 and "wait" in data.decode()  # it says that it slows down
+        resp, _ = _login(port, PASSWORD)
+        assert resp.status == 302 and resp.getheader("Location") == "/"
+    finally:
+        log = stop_server(proc)
+    assert "Traceback" not in log and PASSWORD not in log
 
 
 def test_plain_serve_listens_on_loopback_only():
