@@ -174,6 +174,49 @@ def test_a_follower_mirrors_the_host_read_only_then_detaches(contexts, shared_ur
     assert host.console_errors == [] and follower.console_errors == []
 
 
+def test_a_follower_forcing_the_hidden_share_button_gets_a_message(contexts, shared_url):
+    host, follower = contexts(), contexts()
+    log_in(host, shared_url)
+    host.locator(".fb-share button").click()
+    host.locator('#fb-share[data-role="host"]').wait_for(state="attached")
+    link = host.locator(".fb-follow-links a").first.get_attribute("href")
+    log_in(follower, link)
+    assert follower.locator("#fb-share").get_attribute("data-role") == "follower"
+    hidden = follower.locator(".fb-share button")
+    assert not hidden.is_visible()
+    hidden.dispatch_event("click")  # what a script in the page could do
+    note = follower.locator(".notyf__message", has_text="cannot be shared").first
+    note.wait_for(state="visible")
+    assert follower.locator("#fb-share").get_attribute("data-role") == "follower"
+    host.locator('#fb-share[data-followers="1"]').wait_for(state="attached")
+    # (the module's server fixture asserts that no traceback reached the log)
+    assert host.console_errors == [] and follower.console_errors == []
+
+
+def test_scripts_in_the_page_cannot_read_the_login(contexts, shared_url):
+    pg = contexts()
+    log_in(pg, shared_url)
+    login = [c for c in pg.context.cookies() if c["name"] == "user"]
+    assert len(login) == 1 and login[0]["httpOnly"]
+    assert "user=" not in pg.evaluate("() => document.cookie")
+    assert login[0]["value"] not in pg.content()  # nor in the session token in the page
+
+
+def test_signing_out_closes_the_page_and_the_cookie_stops_working(contexts, shared_url):
+    pg = contexts()
+    log_in(pg, shared_url)
+    saved = [c for c in pg.context.cookies() if c["name"] == "user"]
+    other = pg.context.new_page()
+    other.goto(shared_url + "logout")
+    assert "signed out" in other.inner_text("body")
+    other.close()
+    # A copied cookie is no login any more: a new browser with it gets the login page.
+    thief = contexts()
+    thief.context.add_cookies(saved)
+    thief.goto(shared_url)
+    assert "/login" in thief.url and thief.locator("#fb-state").count() == 0
+
+
 def test_an_unknown_follow_link_opens_an_own_dashboard(contexts, shared_url):
     pg = contexts()
     st = log_in(pg, f"{shared_url}?follow=" + "A" * 24)
