@@ -184,7 +184,18 @@ def _kind(value: Any) -> str:
 
 
 def _fmt(x: float) -> str:
-    return f"{x:g}"
+    """A bound as docs/snapshot.md writes it: whole numbers in full (4294967295), round
+    powers of ten and small fractions in the shortest form with a plain exponent
+    (1e4, 1e-10), everything else as ``%g`` (0.001, 6.28319)."""
+    x = float(x)
+    if x.is_integer() and abs(x) < 2**53:
+        whole = str(int(x))
+        if abs(x) < 1e4 or not whole.endswith("0000"):
+            return whole
+        mantissa, exponent = f"{x:e}".split("e")
+        return f"{mantissa.rstrip('0').rstrip('.')}e{int(exponent)}"
+    mantissa, _, exponent = f"{x:g}".partition("e")
+    return f"{mantissa}e{int(exponent)}" if exponent else mantissa
 
 
 def _range_text(p: param.Number, unit: str) -> str:
