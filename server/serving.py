@@ -6,9 +6,16 @@ connections from ``127.0.0.1:PORT`` and ``localhost:PORT`` only.
 With ``share=True`` it listens on all interfaces (or the one address given),
 prints the URLs that colleagues can open, and lets nobody in without the
 password: from ``--password``, ``--password-file`` or generated and printed
-once. The login cookie is signed with a secret drawn anew at every start, and
-websocket connections are accepted only from pages served under this
-machine's own addresses and port. Every browser gets its own session; the
+once. Every route but the login and sign-out pages answers only to a valid
+login (:func:`_guard_every_route`). A login is recorded on the server
+(:class:`Logins`) and ends at sign-out, after :data:`LOGIN_HOURS` or when the
+server stops; its cookie is signed with a secret drawn anew at every start.
+Bokeh session ids are signed with a second such secret, the page's session
+token carries no cookie, and a page's session is attached once, by the login
+that loaded it (:class:`PageBindings`). Wrong passwords slow their address down
+(:class:`LoginBackoff`) without locking it out. Websocket connections are
+accepted only from pages served under this machine's own addresses and port.
+Every browser gets its own session; the
 number of sessions, the size of a websocket message (uploads) and the
 computations (:data:`server.sharing.COMPUTE_QUEUE`) are bounded.
 """
@@ -430,8 +437,12 @@ class LoginBackoff:
 
     def record(self, client: str) -> None:
         """A wrong password came from ``client``."""
+        now = time.monotonic()
         with self._lock:
-            self._failures.setdefault(client, []).append(time.monotonic())
+            if len(self._failures) > 4096:  # many addresses: forget the stale ones
+                for other in list(self._failures):
+                    self._recent(other, now)
+            self._failures.setdefault(client, []).append(now)
 
     def enter(self, client: str) -> asyncio.Lock | None:
         """Queue an attempt from ``client``: its turn lock, or None when too many wait."""
