@@ -871,6 +871,22 @@ def test_signing_out_ends_the_login_and_closes_its_pages(shared_server):
     assert resp.status == 200  # another login is untouched
 
 
+def test_a_restart_ends_every_login():
+    port = free_port()
+    proc = _start(port, "--share", "--address", "127.0.0.1", "--password", PASSWORD)
+    try:
+        cookie = _cookie_of(_login(port, PASSWORD)[0])
+        assert _request(port, "GET", "/", headers={"Cookie": cookie})[0].status == 200
+    finally:
+        stop_server(proc)
+    proc = _start(port, "--share", "--address", "127.0.0.1", "--password", PASSWORD)
+    try:  # the same password, a new start: the old cookie is no login
+        assert _request(port, "GET", "/", headers={"Cookie": cookie})[0].status == 302
+    finally:
+        log = stop_server(proc)
+    assert "Traceback" not in log
+
+
 def test_a_login_ends_after_its_lifetime(monkeypatch):
     now = [5000.0]
     monkeypatch.setattr(serving.time, "monotonic", lambda: now[0])
