@@ -23,6 +23,7 @@ import numpy as np
 
 from compute import __version__
 from compute.errors import SetupError
+from compute.fileio import new_file_mode
 from compute.snapshot import SnapshotError
 
 __all__ = ["BadInput", "build_parser", "cuts_csv", "main"]
@@ -85,11 +86,13 @@ def _output_path(option: str, value: str, suffix: str) -> Path:
 def _write_all(files: list[tuple[str, Path, bytes]]) -> None:
     """Write every file through a temporary neighbour, then move them all into place."""
     staged: list[tuple[str, Path, str]] = []
+    mode = new_file_mode()
     try:
         for option, path, data in files:
             try:
                 fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent or ".")
                 with os.fdopen(fd, "wb") as fh:
+                    os.fchmod(fd, mode)  # as open() would make it, not mkstemp's 0600
                     fh.write(data)
             except OSError as exc:
                 raise BadInput(option, f"cannot write {str(path)!r} ({exc.strerror})") from None
