@@ -9,9 +9,10 @@ at all. :func:`estimate` answers from the plan alone, without propagating:
 * the number of monochromatic screens the sum needs (wavelengths × source
   directions, × camera tiles);
 * the floating-point operations: per screen, a forward and an inverse transform
-  and the kernel of the padded grid (``5 N log₂ N`` each, the usual count of a
-  radix-2 complex FFT [1]_), plus the direct transforms that land on the screen
-  pixels and the aperture's quadrature weights.
+  and the kernel of the padded grid for a convolution method (``5 N log₂ N``
+  each, the usual count of a radix-2 complex FFT [1]_), or the two matrix
+  products of a transform straight onto the screen pixels; plus the aperture's
+  quadrature weights.
 
 The count is a measure of size, not a prediction to the second: it is
 proportional to the run time of one method on one machine, which is what a
@@ -80,12 +81,15 @@ class Work:
 
 
 def _per_screen(plan: planning.Plan, screen_shape: tuple[int, int]) -> float:
-    ny, nx = plan.padded
-    n = max(1, ny * nx)
-    fft = _TRANSFORMS * 5.0 * n * math.log2(max(2, n))
     sy, sx = screen_shape
-    direct = 8.0 * plan.nx * plan.ny * (sx + sy)  # transforms straight onto the pixels
-    return fft + direct
+    if tuple(plan.padded) != (plan.ny, plan.nx):  # a convolution: transforms of the padded grid
+        n = max(2, plan.padded[0] * plan.padded[1])
+        return _TRANSFORMS * 5.0 * n * math.log2(n)
+    # A transform straight onto the screen pixels: two matrix products (8 flops per
+    # complex multiply-add), or one FFT of the grid, whichever is larger.
+    n = max(2, plan.ny * plan.nx)
+    direct = 8.0 * (plan.ny * plan.nx * sx + plan.ny * sx * sy)
+    return max(direct, 5.0 * n * math.log2(n))
 
 
 def estimate(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Work:

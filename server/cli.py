@@ -264,6 +264,7 @@ def _cmd_serve(args: argparse.Namespace) -> int:
         "password_file": args.password_file,
         "address": args.address,
         "max_sessions": args.max_sessions,
+        "max_work": args.max_work,
     }
     try:
         serving.serve(**options)
@@ -288,6 +289,16 @@ def _port(text: str) -> int:
         raise argparse.ArgumentTypeError(f"expected a port number, got {text!r}") from None
     if not 0 <= value <= 65535:
         raise argparse.ArgumentTypeError(f"expected a port number 0 to 65535, got {value}")
+    return value
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not (value > 0 and value < float("inf")):
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
     return value
 
 
@@ -379,6 +390,15 @@ def build_parser() -> argparse.ArgumentParser:
         default=16,  # serving.DEFAULT_MAX_SESSIONS (serving is imported by serve alone)
         metavar="N",
         help="browser sessions served at once (default 16); a further one gets a notice",
+    )
+    serve.add_argument(
+        "--max-work",
+        type=_positive_float,
+        default=None,
+        metavar="GFLOP",
+        help="largest computation the server starts, in billions of floating-point "
+        "operations as estimated from the plan (default 200, a minute or two of one core); "
+        "a larger one is refused with its estimate",
     )
     serve.set_defaults(func=_cmd_serve)
 

@@ -396,6 +396,7 @@ def test_serve_passes_the_defaults(fake_serving):
             "password_file": None,
             "address": None,
             "max_sessions": 16,
+            "max_work": None,
         }
     ]
 
@@ -403,6 +404,7 @@ def test_serve_passes_the_defaults(fake_serving):
 def test_serve_passes_every_option(fake_serving):
     args = ["serve", "--port", "8123", "--preset", "knife-edge", "--open", "--share"]
     args += ["--password-file", "pw.txt", "--address", "0.0.0.0", "--max-sessions", "4"]
+    args += ["--max-work", "50"]
     assert cli.main(args) == 0
     assert fake_serving[-1] == {
         "port": 8123,
@@ -413,6 +415,7 @@ def test_serve_passes_every_option(fake_serving):
         "password_file": "pw.txt",
         "address": "0.0.0.0",
         "max_sessions": 4,
+        "max_work": 50.0,
     }
 
 
