@@ -461,6 +461,29 @@ class Dashboard(pn.viewable.Viewer):
         fut.add_done_callback(lambda f: self._schedule(lambda: self._imported(name, f)))
         return True
 
+    def _commit_in_steps(self, setup: Setup) -> None:
+        """:meth:`_commit` over several turns of the event loop, computation first.
+
+        Rebuilding the controls and the panels of a large setup takes the shared
+        loop a while; in separate turns, other sessions' messages and pages are
+        served in between.
+        """
+        self.setup = setup
+        self._apply_view(setup.view)
+        self._request_compute()
+        self._update_state()
+        steps = [self._refresh_controls, self._run_setup_hooks, self._mirror_url]
+        doc = self._doc
+
+        def next_step() -> None:
+            if self.setup is not setup:
+                return  # a newer edit has committed (and refreshed) meanwhile
+            steps.pop(0)()
+            if steps and not sharing.run_in_session(doc, next_step, self.priority):
+                steps.clear()
+
+        sharing.run_in_session(doc, next_step, self.priority)
+
     def _imported(self, name: str, fut: Future) -> None:
         """Back on the session's document: adopt the setup read off the loop, or say why not."""
         self._reading = None
@@ -471,7 +494,7 @@ class Dashboard(pn.viewable.Viewer):
                 self._url_too_long = setup if too_long else None
                 self._key_memo = (setup, key)
                 self.selected = 0
-                self._commit(setup, view=setup.view)  # freshly read: nobody else holds it
+                self._commit_in_steps(setup)  # freshly read: nobody else holds it
                 self.notify("info", f"Loaded {name}.")
                 return
         elif isinstance(exc, snapshot.SnapshotError):

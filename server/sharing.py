@@ -21,6 +21,7 @@ that a follower's models are only ever changed in its own session context.
 
 from __future__ import annotations
 
+import contextlib
 import heapq
 import html
 import logging
@@ -40,6 +41,7 @@ import panel as pn
 from panel.io.state import set_curdoc
 
 from compute import engine, snapshot, workload
+from compute import fft as _fft
 from compute.cancel import Cancelled, cancel_scope, checkpoint
 from compute.errors import SetupError
 from compute.model import Setup
@@ -145,6 +147,38 @@ def estimate_work(setup: Setup) -> workload.Work | int:
     if engine.RESULT_CACHE.get(snapshot.physics_hash(setup)) is not None:
         return 0
     return workload.estimate(setup)
+
+
+#: Niceness of the threads that run heavy jobs and read imported files: the
+#: operating system gives the event loop and the interactive updates the cores first.
+LOW_PRIORITY = 10
+
+
+def _lower_this_thread() -> None:
+    """Lower the scheduling priority of the calling thread alone (Linux: threads are tasks)."""
+    # Where the system has no per-thread priority, the lane limits still hold.
+    with contextlib.suppress(AttributeError, OSError):
+        os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), LOW_PRIORITY)
+
+
+def _run_heavy(fn: Callable[[], Any], cancel: threading.Event | None) -> Any:
+    """Run a heavy job on a fresh thread of low priority, its transforms on one core."""
+    box: dict[str, Any] = {}
+
+    def run() -> None:
+        _lower_this_thread()
+        try:
+            with _fft.one_thread(), cancel_scope(cancel):
+                box["value"] = fn()
+        except BaseException as exc:  # handed to the lane, which reports it
+            box["error"] = exc
+
+    worker = threading.Thread(target=run, name="fringebench-heavy", daemon=True)
+    worker.start()
+    worker.join()
+    if "error" in box:
+        raise box["error"]
+    return box["value"]
 
 
 @dataclass
@@ -451,7 +485,7 @@ class ComputeQueue:
                     try:
                         with cancel_scope(job.cancel):
                             checkpoint()
-                            value = job.fn()
+                            value = _run_heavy(job.fn, job.cancel) if job.heavy else job.fn()
                     except BaseException as exc:  # delivered to the session as its failure
                         if isinstance(exc, Cancelled):
                             with self._cond:
@@ -473,7 +507,9 @@ class ComputeQueue:
 COMPUTE_QUEUE = ComputeQueue()
 
 #: Reading imported snapshots: two at a time, never on the event loop.
-_READERS = ThreadPoolExecutor(max_workers=2, thread_name_prefix="fringebench-read")
+_READERS = ThreadPoolExecutor(
+    max_workers=2, thread_name_prefix="fringebench-read", initializer=_lower_this_thread
+)
 
 
 def offload(fn: Callable[[], Any]) -> Future:
