@@ -12,6 +12,7 @@ start a computation.
 from __future__ import annotations
 
 import base64
+import contextlib
 import datetime as _dt
 import functools
 import html
@@ -478,7 +479,10 @@ class Dashboard(pn.viewable.Viewer):
         def next_step() -> None:
             if self.setup is not setup:
                 return  # a newer edit has committed (and refreshed) meanwhile
-            steps.pop(0)()
+            models = getattr(doc, "models", None)
+            # One recomputation of the document's model graph per step, not one per widget.
+            with models.freeze() if hasattr(models, "freeze") else contextlib.nullcontext():
+                steps.pop(0)()
             if steps and not sharing.run_in_session(doc, next_step, self.priority):
                 steps.clear()
 
