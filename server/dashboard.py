@@ -466,8 +466,8 @@ class Dashboard(pn.viewable.Viewer):
         """:meth:`_commit` over several turns of the event loop, computation first.
 
         Rebuilding the controls and the panels of a large setup takes the shared
-        loop a while; in separate turns, other sessions' messages and pages are
-        served in between.
+        loop a while; in separate turns, queued after every session's screen
+        result, other sessions' messages, results and pages are served in between.
         """
         self.setup = setup
         self._apply_view(setup.view)
@@ -483,10 +483,12 @@ class Dashboard(pn.viewable.Viewer):
             # One recomputation of the document's model graph per step, not one per widget.
             with models.freeze() if hasattr(models, "freeze") else contextlib.nullcontext():
                 steps.pop(0)()
-            if steps and not sharing.run_in_session(doc, next_step, self.priority):
+            if steps and not sharing.run_in_session(doc, next_step, later):
                 steps.clear()
 
-        sharing.run_in_session(doc, next_step, self.priority)
+        # After every session's screen result, like background work.
+        later = self.priority + sharing.PRIORITY_BACKGROUND
+        sharing.run_in_session(doc, next_step, later)
 
     def _imported(self, name: str, fut: Future) -> None:
         """Back on the session's document: adopt the setup read off the loop, or say why not."""

@@ -512,3 +512,10 @@ def test_snapshot_save_honours_the_umask(tmp_path):
     finally:
         os.umask(old)
     assert (tmp_path / "s.json").stat().st_mode & 0o777 == 0o640
+
+
+@pytest.mark.parametrize("value", ["0", "-5", "nan", "inf", "lots"])
+def test_serve_max_work_must_be_a_positive_number(fake_serving, capsys, value):
+    assert cli.main(["serve", "--max-work", value]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: argument --max-work:") and fake_serving == []

@@ -165,6 +165,11 @@ def test_an_import_and_three_heavy_sums_do_not_hold_up_a_fifth_users_edit(browse
             fifth.wait_for_timeout(200)
         else:
             raise AssertionError(f"the heavy imports did not start: {states}")
+        for pg in colleagues:  # and their controls show it: the three now only compute
+            box = pg.locator(".fb-distance input").first
+            deadline = time.monotonic() + 60
+            while box.input_value() == "1.2" and time.monotonic() < deadline:
+                pg.wait_for_timeout(200)
 
         delays = []
         for distance in (1.1, 1.7, 0.9, 1.4, 0.8):
