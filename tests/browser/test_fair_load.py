@@ -2,7 +2,8 @@
 
 One logged-in session imports a snapshot of 100 polygons × 1,000 vertices while
 three others import a heavy broad-band setup (a flat spectrum from a source of
-finite size: hundreds of monochromatic screens). Meanwhile a fifth session's
+finite size: hundreds of monochromatic screens). Once the imports are in and the
+heavy sums (the polygons' among them) hold their lanes, a fifth session's
 distance edits are drawn within 5 s each (the issue's bound, added to what the
 same edits take on this machine with the server idle, measured first in the same
 test, so that a busy test host does not count against the server), and the
@@ -170,22 +171,25 @@ def test_an_import_and_three_heavy_sums_do_not_hold_up_a_fifth_users_edit(browse
             deadline = time.monotonic() + 60
             while box.input_value() == "1.2" and time.monotonic() < deadline:
                 pg.wait_for_timeout(200)
+        # The importing user sees the hundred polygons; their computation is heavy too
+        # and waits for its turn on the lanes that heavy work may hold.
+        deadline = time.monotonic() + 120
+        while state(importer).get("elements") != "100" and time.monotonic() < deadline:
+            importer.wait_for_timeout(200)
+        assert state(importer).get("elements") == "100"
+        assert state(importer).get("busy") == "1"
 
         delays = []
         for distance in (1.1, 1.7, 0.9, 1.4, 0.8):
             delays.append(_timed_edit(fifth, distance))
             # The heavy work was still running while the edit was drawn.
             assert any(state(pg).get("busy") == "1" for pg in colleagues)
+            assert state(importer).get("busy") == "1"
         print(
             f"fifth session's edits drawn after {[round(d, 2) for d in delays]} s "
             f"(idle server: {[round(d, 2) for d in idle]} s)"
         )
 
-        # The importing user sees the hundred polygons (their result may still wait its turn).
-        deadline = time.monotonic() + 120
-        while state(importer).get("elements") != "100" and time.monotonic() < deadline:
-            importer.wait_for_timeout(200)
-        assert state(importer).get("elements") == "100"
         pinger.stop.set()
         pinger.join(35)
         quiet, loaded = pinger.times[:idle_pings], pinger.times[idle_pings:]
