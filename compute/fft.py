@@ -54,6 +54,7 @@ __all__ = [
     "ifft2",
     "multiply_ifft2",
     "next_fast_len",
+    "one_thread",
     "prepare",
     "use_backend",
     "zeros",
@@ -98,6 +99,28 @@ def zeros(shape: tuple[int, ...], dtype=np.complex64) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------- FFTW
+
+
+_LOCAL = threading.local()
+
+
+@contextlib.contextmanager
+def one_thread() -> Iterator[None]:
+    """Within the block, this thread's transforms run on one core (scipy.fft, one worker).
+
+    A shared server runs heavy jobs so, leaving the other cores to interactive
+    updates; the backends' speed records are not touched by these runs.
+    """
+    old = getattr(_LOCAL, "one", False)
+    _LOCAL.one = True
+    try:
+        yield
+    finally:
+        _LOCAL.one = old
+
+
+def _one() -> bool:
+    return getattr(_LOCAL, "one", False)
 
 
 def _key(shape: tuple[int, ...], dtype) -> tuple:
@@ -326,6 +349,8 @@ def fft2(a: np.ndarray, *, overwrite: bool = False) -> np.ndarray:
     With ``overwrite`` the result may be ``a`` itself, transformed in place.
     """
     a = _complex(np.asarray(a))
+    if _one():
+        return scipy.fft.fft2(a, workers=1, overwrite_x=overwrite)
     key = _key(a.shape, a.dtype)
     backend = _next_backend(key, backend_for(a.shape, a.dtype, count=True))
     t0 = time.perf_counter()
@@ -343,6 +368,8 @@ def ifft2(a: np.ndarray, *, overwrite: bool = False) -> np.ndarray:
     With ``overwrite`` the result may be ``a`` itself, transformed in place.
     """
     a = _complex(np.asarray(a))
+    if _one():
+        return scipy.fft.ifft2(a, workers=1, overwrite_x=overwrite)
     if backend_for(a.shape, a.dtype) == "pyfftw":
         out = _fftw_in_place(a, False, overwrite)
         if out is not None:
@@ -359,7 +386,7 @@ def multiply_ifft2(spec: np.ndarray, kernel: np.ndarray) -> np.ndarray:
     """
     if spec.dtype not in (np.complex64, np.complex128) or not spec.flags.writeable:
         raise ValueError("multiply_ifft2 needs a writeable complex64 or complex128 spectrum")
-    if backend_for(spec.shape, spec.dtype) == "pyfftw" and spec.flags.c_contiguous:
+    if not _one() and backend_for(spec.shape, spec.dtype) == "pyfftw" and spec.flags.c_contiguous:
         plan = _plan(spec, False)
         if plan is not None:
             # FFTW does not normalise: the 1/N is applied to each block of the

@@ -44,6 +44,7 @@ from scipy import signal
 
 from . import camera as cam
 from . import colour, planning, sources, spectrum
+from .cancel import checkpoint
 from .errors import SetupError
 from .metrics import _disc_rect_area
 from .model import Camera, Screen, Setup, Source
@@ -534,6 +535,7 @@ def _components(setup: Setup, r: Route):
         src = _mono_source(setup.source, r.wavelengths[0], a, b)
         comp = _with(setup, source=src)
         for lam, wl in zip(r.wavelengths, r.weights, strict=True):
+            checkpoint()  # a newer request of the same user stops the sum here
             src.wavelength = float(lam)
             yield comp, float(wl * w), float(lam)
 
@@ -611,6 +613,7 @@ def _sensor_sum(setup: Setup, r: Route, memory_limit: int) -> tuple[np.ndarray, 
     for comp, w, lam in _components(setup, r):
         per_photon = lam / (cam.PLANCK * cam.LIGHT_SPEED)
         for t in r.tiles:
+            checkpoint()
             inten, _ = _irradiance(_on_screen(memo, comp, t.screen), r, memo, memory_limit)
             shape = (t.j1 - t.j0, t.i1 - t.i0)
             energy = cam.integrate_pixels(inten, k, shape, active, c.pixel_pitch)

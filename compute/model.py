@@ -10,8 +10,10 @@ section, one subclass of :class:`Element` per aperture shape.
 
 from __future__ import annotations
 
+import itertools
 import math
 
+import numpy as np
 import param
 
 __all__ = [
@@ -269,6 +271,14 @@ class Edge(Element):
     shape = "edge"
 
 
+def _plain_pairs(v: list) -> bool:
+    """Every item of ``v`` is a list or tuple of two ints or floats (no bools)."""
+    if not all(type(p) in (list, tuple) and len(p) == 2 for p in v):
+        return False
+    kinds = set(map(type, itertools.chain.from_iterable(v)))
+    return kinds <= {float, int}
+
+
 class Polygon(Element):
     """A simple polygon; ``vertices`` are relative to the element's centre."""
 
@@ -285,7 +295,16 @@ class Polygon(Element):
             return [("vertices", f"a polygon needs at least 3 vertices, got {len(v)}")]
         if len(v) > MAX_POLYGON_VERTICES:
             return [("vertices", f"at most {MAX_POLYGON_VERTICES} vertices, got {len(v)}")]
-        for i, p in enumerate(v):
+        first_bad = 0
+        if _plain_pairs(v):  # the usual case, checked at C speed; else vertex by vertex
+            try:
+                flat = np.asarray(v, dtype=np.float64)
+            except OverflowError:  # an int beyond float range: the loop reports it
+                flat = None
+            if flat is not None:
+                bad = ~(np.isfinite(flat) & (np.abs(flat) <= MAX_LENGTH)).all(axis=1)
+                first_bad = int(np.argmax(bad)) if bad.any() else len(v)
+        for i, p in enumerate(v[first_bad:], start=first_bad):
             ok = (
                 isinstance(p, (list, tuple))
                 and len(p) == 2
@@ -299,10 +318,10 @@ class Polygon(Element):
             )
             if not ok:
                 return [(f"vertices[{i}]", f"expected [x, y] in metres, got {p!r}")]
-        area = 0.5 * sum(
-            v[i][0] * v[(i + 1) % len(v)][1] - v[(i + 1) % len(v)][0] * v[i][1]
-            for i in range(len(v))
-        )
+        # The same products as term by term, summed in the same order.
+        xy = np.asarray(v, dtype=np.float64)
+        nxt = np.roll(xy, -1, axis=0)
+        area = 0.5 * sum((xy[:, 0] * nxt[:, 1] - nxt[:, 0] * xy[:, 1]).tolist())
         if area == 0.0:
             return [("vertices", "the polygon has zero area")]
         return []

@@ -26,6 +26,7 @@ import hashlib
 import json
 import math
 import os
+import stat
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -34,6 +35,7 @@ from typing import Any
 import param
 
 from compute import model
+from compute.fileio import new_file_mode
 from compute.model import (
     ELEMENT_TYPES,
     Aperture,
@@ -783,10 +785,17 @@ def load(path: str | os.PathLike[str]) -> Setup:
     try:
         if p.is_dir():
             raise SnapshotError([(where, "is a directory, not a snapshot file")])
-        size = p.stat().st_size
-        if size > MAX_SNAPSHOT_BYTES:
-            raise SnapshotError([(where, f"file is {size / 2**20:.1f} MB; {limit_text}")])
-        with open(p, "rb") as fh:
+        # Opened without blocking, then checked on the open file itself: a FIFO, a
+        # device or a socket would otherwise wait for a writer (or read) forever.
+        fd = os.open(p, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with open(fd, "rb") as fh:
+            info = os.fstat(fd)
+            if not stat.S_ISREG(info.st_mode):
+                raise SnapshotError([(where, "is not a regular file (a pipe, device or socket)")])
+            os.set_blocking(fd, True)
+            size = info.st_size
+            if size > MAX_SNAPSHOT_BYTES:
+                raise SnapshotError([(where, f"file is {size / 2**20:.1f} MB; {limit_text}")])
             raw = fh.read(MAX_SNAPSHOT_BYTES + 1)
     except FileNotFoundError:
         raise SnapshotError([(where, "no such file")]) from None
@@ -803,6 +812,7 @@ def save(setup: Setup, path: str | os.PathLike[str]) -> None:
     target = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=".snapshot-", suffix=".tmp", dir=target.parent or ".")
     try:
+        os.fchmod(fd, new_file_mode())  # as open() would make it, not mkstemp's 0600
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
         os.replace(tmp, target)

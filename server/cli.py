@@ -23,6 +23,7 @@ import numpy as np
 
 from compute import __version__
 from compute.errors import SetupError
+from compute.fileio import new_file_mode
 from compute.snapshot import SnapshotError
 
 __all__ = ["BadInput", "build_parser", "cuts_csv", "main"]
@@ -85,11 +86,13 @@ def _output_path(option: str, value: str, suffix: str) -> Path:
 def _write_all(files: list[tuple[str, Path, bytes]]) -> None:
     """Write every file through a temporary neighbour, then move them all into place."""
     staged: list[tuple[str, Path, str]] = []
+    mode = new_file_mode()
     try:
         for option, path, data in files:
             try:
                 fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent or ".")
                 with os.fdopen(fd, "wb") as fh:
+                    os.fchmod(fd, mode)  # as open() would make it, not mkstemp's 0600
                     fh.write(data)
             except OSError as exc:
                 raise BadInput(option, f"cannot write {str(path)!r} ({exc.strerror})") from None
@@ -261,6 +264,7 @@ def _cmd_serve(args: argparse.Namespace) -> int:
         "password_file": args.password_file,
         "address": args.address,
         "max_sessions": args.max_sessions,
+        "max_work": args.max_work,
     }
     try:
         serving.serve(**options)
@@ -285,6 +289,16 @@ def _port(text: str) -> int:
         raise argparse.ArgumentTypeError(f"expected a port number, got {text!r}") from None
     if not 0 <= value <= 65535:
         raise argparse.ArgumentTypeError(f"expected a port number 0 to 65535, got {value}")
+    return value
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not (value > 0 and value < float("inf")):
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
     return value
 
 
@@ -376,6 +390,15 @@ def build_parser() -> argparse.ArgumentParser:
         default=16,  # serving.DEFAULT_MAX_SESSIONS (serving is imported by serve alone)
         metavar="N",
         help="browser sessions served at once (default 16); a further one gets a notice",
+    )
+    serve.add_argument(
+        "--max-work",
+        type=_positive_float,
+        default=None,
+        metavar="GFLOP",
+        help="largest computation the server starts, in billions of floating-point "
+        "operations as estimated from the plan (default 200, a minute or two of one core); "
+        "a larger one is refused with its estimate",
     )
     serve.set_defaults(func=_cmd_serve)
 

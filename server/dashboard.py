@@ -12,6 +12,7 @@ start a computation.
 from __future__ import annotations
 
 import base64
+import contextlib
 import datetime as _dt
 import functools
 import html
@@ -102,6 +103,17 @@ def _work(setup: Setup, shown_aperture: str | None) -> tuple[Any, Any, str]:
     return engine.compute(setup), preview, key
 
 
+def _read_snapshot(data: bytes | str, name: str) -> tuple[Setup, bool, str]:
+    """The worker's part of an import: parse and check, the address length, the key.
+
+    Runs off the event loop (a large snapshot takes seconds to read). Returns the
+    setup, whether it is too large for the page address, and its physics hash.
+    """
+    setup = snapshot.loads(data, source=name)
+    too_long = len(urlstate.encode_setup(setup)) > urlstate.MAX_QUERY_CHARS
+    return setup, too_long, snapshot.physics_hash(setup)
+
+
 def failure_message(exc: BaseException) -> str:
     """A plain sentence for a failed computation (no traceback for the user)."""
     if isinstance(exc, SetupError):
@@ -158,6 +170,10 @@ class Dashboard(pn.viewable.Viewer):
         self._location = pn.state.location if in_session else None
         self._notifications = pn.state.notifications if in_session else None
         self._lock = threading.Lock()
+        self._cancel: threading.Event | None = None  # stops the running job for a newer one
+        self._reading: str | None = None  # the file being imported off the event loop
+        self._url_too_long: Setup | None = None  # a setup known to be too long for the URL
+        self._key_memo: tuple[Setup | None, str] = (None, "")
         self._wanted: Setup | None = None
         self._running = False
         self._idle = threading.Event()
@@ -421,6 +437,8 @@ class Dashboard(pn.viewable.Viewer):
                 f"{MAX_UPLOAD_BYTES // 2**20} MB",
             )
             return False
+        if self._threaded and self._doc is not None and self._doc.session_context is not None:
+            return self._import_off_loop(data, name)  # nothing of its size on the event loop
         try:
             setup = snapshot.loads(data, source=name)
         except snapshot.SnapshotError as exc:
@@ -430,6 +448,74 @@ class Dashboard(pn.viewable.Viewer):
             return False
         self.load(setup, origin=name)
         return True
+
+    def _import_off_loop(self, data: bytes | str, name: str) -> bool:
+        """Read the snapshot on a worker thread; the session shows it is busy meanwhile."""
+        if self._read_only() or self._reading is not None:
+            if self._reading is not None:
+                self.notify("warning", f"still reading {self._reading}; try again when it is in")
+            return False
+        self._reading = name
+        self.busy = True
+        self._update_state()
+        fut = sharing.offload(functools.partial(_read_snapshot, data, name))
+        fut.add_done_callback(lambda f: self._schedule(lambda: self._imported(name, f)))
+        return True
+
+    def _commit_in_steps(self, setup: Setup) -> None:
+        """:meth:`_commit` over several turns of the event loop, computation first.
+
+        Rebuilding the controls and the panels of a large setup takes the shared
+        loop a while; in separate turns, queued after every session's screen
+        result, other sessions' messages, results and pages are served in between.
+        """
+        self.setup = setup
+        self._apply_view(setup.view)
+        self._request_compute()
+        self._update_state()
+        steps = [self._refresh_controls, self._run_setup_hooks, self._mirror_url]
+        doc = self._doc
+
+        def next_step() -> None:
+            if self.setup is not setup:
+                return  # a newer edit has committed (and refreshed) meanwhile
+            models = getattr(doc, "models", None)
+            # One recomputation of the document's model graph per step, not one per widget.
+            with models.freeze() if hasattr(models, "freeze") else contextlib.nullcontext():
+                steps.pop(0)()
+            if steps and not sharing.run_in_session(doc, next_step, later):
+                steps.clear()
+
+        # After every session's screen result, like background work.
+        later = self.priority + sharing.PRIORITY_BACKGROUND
+        sharing.run_in_session(doc, next_step, later)
+
+    def _imported(self, name: str, fut: Future) -> None:
+        """Back on the session's document: adopt the setup read off the loop, or say why not."""
+        self._reading = None
+        exc = fut.exception()
+        if exc is None:
+            setup, too_long, key = fut.result()
+            if not self._read_only():
+                self._url_too_long = setup if too_long else None
+                self._key_memo = (setup, key)
+                self.selected = 0
+                self._commit_in_steps(setup)  # freshly read: nobody else holds it
+                self.notify("info", f"Loaded {name}.")
+                return
+        elif isinstance(exc, snapshot.SnapshotError):
+            listed = [f"{p}: {m}" if p else m for p, m in exc.errors[:8]]
+            more = f" (and {len(exc.errors) - 8} more)" if len(exc.errors) > 8 else ""
+            self.notify("error", f"{name} was not loaded: " + "; ".join(listed) + more)
+        else:
+            log.error("reading a snapshot failed", exc_info=exc)
+            self.notify("error", f"{name} was not loaded: {failure_message(exc)}")
+        with self._lock:
+            running = self._running
+        if not running:
+            self.busy = False
+            self._set_busy_view(False)
+            self._update_state()
 
     # -------------------------------------------------------------- view state
 
@@ -463,10 +549,14 @@ class Dashboard(pn.viewable.Viewer):
     def _mirror_url(self) -> None:
         if self._location is None:
             return
+        if self._url_too_long is self.setup:  # known too long: encode nothing on the loop
+            self._location.update_query(s="")
+            return
         s = clone(self.setup)
         s.view = self.view_state()
         value = urlstate.encode_setup(s)
         if len(value) > urlstate.MAX_QUERY_CHARS:
+            self._url_too_long = self.setup
             self._location.update_query(s="")
             if not self._url_warned:
                 self._url_warned = True
@@ -503,6 +593,8 @@ class Dashboard(pn.viewable.Viewer):
             self._wanted = self.setup
             self._idle.clear()
             if self._running:
+                if self._cancel is not None:
+                    self._cancel.set()  # the older request stops between its screens
                 return  # the running job picks up the newest setup when it ends
             self._running = True
         self.busy = True
@@ -519,7 +611,8 @@ class Dashboard(pn.viewable.Viewer):
             self._finish(setup, fut)
             return
         job = functools.partial(_work, setup, self._shown_aperture)
-        fut = sharing.COMPUTE_QUEUE.submit(setup, job, priority=self.priority)  # queue hook
+        self._cancel = cancel = threading.Event()
+        fut = sharing.COMPUTE_QUEUE.submit(setup, job, priority=self.priority, cancel=cancel)
         fut.add_done_callback(lambda f: self._schedule(lambda: self._finish(setup, f)))
 
     def _schedule(self, callback: Callable[[], None]) -> None:
@@ -938,7 +1031,7 @@ class Dashboard(pn.viewable.Viewer):
             "cut-x": repr(self.cut_x),
             "cut-y": repr(self.cut_y),
             "error": self.last_error,
-            "setup-key": snapshot.physics_hash(self.setup),
+            "setup-key": self._setup_key(),
             "elements": len(self.setup.aperture.elements),
         }
         if r is not None and self._map_data is not None:
@@ -964,7 +1057,9 @@ class Dashboard(pn.viewable.Viewer):
         attrs.update(self.state_extra)
         body = " ".join(f'data-{k}="{html.escape(str(v))}"' for k, v in attrs.items())
         self.state_pane.object = f'<div id="fb-state" class="fb-state-data" {body}></div>'
-        if self.busy:
+        if self._reading is not None:
+            text = f"reading {self._reading}…"
+        elif self.busy:
             text = "computing…"
         elif self.last_error:
             text = f"last computation failed: {self.last_error}"
@@ -977,6 +1072,14 @@ class Dashboard(pn.viewable.Viewer):
             text = ""
         cls = "fb-status-error" if self.last_error and not self.busy else ""
         self.status.object = f'<span class="{cls}">{html.escape(text)}</span>'
+
+    def _setup_key(self) -> str:
+        """The physics hash of the committed setup, made once per setup (setups are replaced)."""
+        setup, key = self._key_memo
+        if setup is not self.setup:
+            key = snapshot.physics_hash(self.setup)
+            self._key_memo = (self.setup, key)
+        return key
 
     # ------------------------------------------- follow mode hooks (server.sharing)
 

@@ -921,6 +921,7 @@ def serve(
     max_sessions: int = DEFAULT_MAX_SESSIONS,
     compute_workers: int | None = None,
     memory_budget: int | None = None,
+    max_work: float | None = None,
     out: Any = None,
     **kw: Any,
 ) -> None:
@@ -946,6 +947,9 @@ def serve(
         Dashboards served at once.
     compute_workers, memory_budget
         Lanes and working-memory budget (bytes) of the compute queue.
+    max_work
+        Largest computation started, GFLOP as estimated from its plan
+        (:data:`server.sharing.DEFAULT_MAX_WORK_GFLOP` when None).
     out
         Where the start-up lines go (standard output by default).
     **kw
@@ -989,7 +993,11 @@ def serve(
     text = snapshot.dumps(start)
 
     try:
-        sharing.COMPUTE_QUEUE.configure(workers=compute_workers, memory_budget=memory_budget)
+        sharing.COMPUTE_QUEUE.configure(
+            workers=compute_workers,
+            memory_budget=memory_budget,
+            max_work=None if max_work is None else max_work * 1e9,
+        )
     except (RuntimeError, ValueError) as exc:
         raise ServeError(str(exc)) from None
 

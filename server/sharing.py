@@ -21,6 +21,7 @@ that a follower's models are only ever changed in its own session context.
 
 from __future__ import annotations
 
+import contextlib
 import heapq
 import html
 import logging
@@ -31,7 +32,7 @@ import threading
 import time
 from collections import deque
 from collections.abc import Callable, Iterable
-from concurrent.futures import Future
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
 from urllib.parse import urlencode
@@ -39,7 +40,9 @@ from urllib.parse import urlencode
 import panel as pn
 from panel.io.state import set_curdoc
 
-from compute import engine, snapshot
+from compute import engine, snapshot, workload
+from compute import fft as _fft
+from compute.cancel import Cancelled, cancel_scope, checkpoint
 from compute.errors import SetupError
 from compute.model import Setup
 from compute.planning import DEFAULT_MEMORY_LIMIT
@@ -47,6 +50,8 @@ from compute.planning import DEFAULT_MEMORY_LIMIT
 __all__ = [
     "APPLY_QUEUE",
     "COMPUTE_QUEUE",
+    "DEFAULT_INTERACTIVE_GFLOP",
+    "DEFAULT_MAX_WORK_GFLOP",
     "FOLLOW_QUERY_KEY",
     "PRIORITY_BACKGROUND",
     "PRIORITY_FOLLOWER",
@@ -63,6 +68,8 @@ __all__ = [
     "SharedState",
     "default_memory_budget",
     "default_workers",
+    "estimate_work",
+    "offload",
     "run_in_session",
 ]
 
@@ -121,13 +128,69 @@ def estimate_bytes(setup: Setup) -> int:
     return int(engine.check(setup).memory_bytes)
 
 
+#: Largest computation a server starts, GFLOP (``serve --max-work``): about a minute
+#: or two of one core of a current desktop; a setup above it is refused before it runs.
+DEFAULT_MAX_WORK_GFLOP = 200.0
+#: Up to this many GFLOP a job counts as an interactive update (a second or two); a
+#: heavier one runs only on the lanes that heavy work may hold, never on all of them.
+DEFAULT_INTERACTIVE_GFLOP = 4.0
+
+
+def estimate_work(setup: Setup) -> workload.Work | int:
+    """The :class:`~compute.workload.Work` of computing ``setup``: 0 for a cached result.
+
+    Raises
+    ------
+    SetupError
+        When the planner refuses the setup (the same message a computation gives).
+    """
+    if engine.RESULT_CACHE.get(snapshot.physics_hash(setup)) is not None:
+        return 0
+    return workload.estimate(setup)
+
+
+#: Niceness of the threads that run heavy jobs and read imported files: the
+#: operating system gives the event loop and the interactive updates the cores first.
+LOW_PRIORITY = 10
+
+
+def _lower_this_thread() -> None:
+    """Lower the scheduling priority of the calling thread alone (Linux: threads are tasks)."""
+    # Where the system has no per-thread priority, the lane limits still hold.
+    with contextlib.suppress(AttributeError, OSError):
+        os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), LOW_PRIORITY)
+
+
+def _run_heavy(fn: Callable[[], Any], cancel: threading.Event | None) -> Any:
+    """Run a heavy job on a fresh thread of low priority, its transforms on one core."""
+    box: dict[str, Any] = {}
+
+    def run() -> None:
+        _lower_this_thread()
+        try:
+            with _fft.one_thread(), cancel_scope(cancel):
+                box["value"] = fn()
+        except BaseException as exc:  # handed to the lane, which reports it
+            box["error"] = exc
+
+    worker = threading.Thread(target=run, name="fringebench-heavy", daemon=True)
+    worker.start()
+    worker.join()
+    if "error" in box:
+        raise box["error"]
+    return box["value"]
+
+
 @dataclass
 class _Job:
     fn: Callable[[], Any]
     future: Future
-    nbytes: int
+    nbytes: int | None  # None while its plan is being made
     priority: int
     seq: int
+    submitted: float = 0.0
+    heavy: bool = False
+    cancel: threading.Event | None = None
 
 
 class ComputeQueue:
@@ -148,8 +211,21 @@ class ComputeQueue:
         Seconds after which, when every regular lane is still busy, one spare
         lane takes the next job; long jobs then hold at most all regular lanes.
     estimate
-        ``setup -> bytes``; planning by default (0 for a cached result).
+        ``setup -> bytes`` or ``setup -> Work``; the plan's work by default (0 for
+        a cached result). It runs on a thread of its own, never on the caller's
+        (the event loop), since planning a large setup takes seconds.
+    max_work
+        Floating-point operations above which a job is refused before it runs
+        (:data:`DEFAULT_MAX_WORK_GFLOP` by default).
+    interactive_work
+        Operations up to which a job is an interactive update; heavier jobs hold
+        at most all regular lanes but one (and never the spare lane), together
+        with background work, so that an ordinary edit always finds a lane.
     """
+
+    #: Seconds a lane waits for a job still being planned that arrived before the
+    #: ones ready to run (so that arrival order holds for ordinary plans of a few ms).
+    order_grace = 0.25
 
     def __init__(
         self,
@@ -157,7 +233,9 @@ class ComputeQueue:
         memory_budget: int | None = None,
         *,
         spare_after: float = 2.0,
-        estimate: Callable[[Setup], int] = estimate_bytes,
+        estimate: Callable[[Setup], Any] = estimate_work,
+        max_work: float | None = None,
+        interactive_work: float | None = None,
     ):
         self._cond = threading.Condition()
         self._pending: deque[_Job] = deque()
@@ -171,10 +249,16 @@ class ComputeQueue:
         self.workers = workers or default_workers()
         self.memory_budget = memory_budget or default_memory_budget(self.workers)
         self.spare_after = float(spare_after)
+        self.max_work = float(max_work) if max_work else DEFAULT_MAX_WORK_GFLOP * 1e9
+        self.interactive_work = (
+            float(interactive_work) if interactive_work else DEFAULT_INTERACTIVE_GFLOP * 1e9
+        )
+        self._heavy: set[int] = set()  # lanes running heavy jobs
         self.peak_bytes = 0  # the most memory the running jobs held together
         self.peak_running = 0
         self.completed = 0
         self.refused = 0
+        self.cancelled = 0
 
     def configure(
         self,
@@ -182,8 +266,13 @@ class ComputeQueue:
         workers: int | None = None,
         memory_budget: int | None = None,
         spare_after: float | None = None,
+        max_work: float | None = None,
+        interactive_work: float | None = None,
     ) -> None:
-        """Change the limits; the number of lanes only before the first job."""
+        """Change the limits; the number of lanes only before the first job.
+
+        ``max_work`` and ``interactive_work`` are floating-point operations.
+        """
         with self._cond:
             if workers is not None and workers != self.workers:
                 if self._threads:
@@ -197,6 +286,11 @@ class ComputeQueue:
                 self.memory_budget = int(memory_budget)
             if spare_after is not None:
                 self.spare_after = float(spare_after)
+            for name, value in (("max_work", max_work), ("interactive_work", interactive_work)):
+                if value is not None:
+                    if not value > 0:
+                        raise ValueError(f"{name}: a positive number of operations is needed")
+                    setattr(self, name, float(value))
             self._cond.notify_all()
 
     # -------------------------------------------------------------- public
@@ -207,42 +301,76 @@ class ComputeQueue:
         fn: Callable[[], Any],
         *,
         priority: int = PRIORITY_OTHER,
-        estimate: Callable[[], int] | None = None,
+        estimate: Callable[[], Any] | None = None,
+        cancel: threading.Event | None = None,
     ) -> Future:
-        """Queue ``fn`` (which computes ``setup``) and return its future.
+        """Queue ``fn`` (which computes ``setup``) and return its future at once.
 
-        Jobs start by ``priority`` (lower first), then in arrival order. The
-        future fails at once with a :class:`SetupError` when the setup cannot
-        be planned or needs more memory than the whole budget. ``estimate``
-        gives the job's working memory in bytes when it is not the screen
-        computation of ``setup`` (the queue's own estimate).
+        The setup is planned on a thread of its own; the job then starts by
+        ``priority`` (lower first), then in arrival order. The future fails with
+        a :class:`SetupError` when the setup cannot be planned, needs more memory
+        than the whole budget or more work than :attr:`max_work`. ``estimate``
+        gives the job's working memory in bytes (or its ``Work``) when it is not
+        the screen computation of ``setup``. Setting ``cancel`` stops the job: it
+        never starts, or a running sum stops before its next screen, and the
+        future fails with :class:`~compute.cancel.Cancelled`.
         """
         fut: Future = Future()
-        try:
-            nbytes = int(estimate() if estimate is not None else self._estimate(setup))
-        except Exception as exc:  # the planner's refusal, shown as the job's failure
-            fut.set_exception(exc)
-            return fut
-        if nbytes > self.memory_budget:
-            with self._cond:
-                self.refused += 1
-            fut.set_exception(
-                SetupError(
-                    "numerics.grid",
-                    f"the computation needs about {nbytes / 2**30:.3g} GiB while this server "
-                    f"allows {self.memory_budget / 2**30:.3g} GiB for all sessions together; "
-                    "use fewer screen samples, a smaller grid or a narrower window",
-                )
-            )
-            return fut
         with self._cond:
             if self._closed:
                 raise RuntimeError("the compute queue is closed")
             self._seq += 1
-            self._pending.append(_Job(fn, fut, nbytes, int(priority), self._seq))
-            self._ensure_lanes()
-            self._cond.notify_all()
+            job = _Job(fn, fut, None, int(priority), self._seq, time.monotonic(), cancel=cancel)
+            self._pending.append(job)
+        sizing = threading.Thread(
+            target=self._size,
+            args=(job, setup, estimate),
+            name=f"fringebench-plan-{job.seq}",
+            daemon=True,
+        )
+        sizing.start()
         return fut
+
+    def _size(self, job: _Job, setup: Setup, estimate: Callable[[], Any] | None) -> None:
+        """Plan ``job`` off the caller's thread; then queue it, or refuse it."""
+        failure: BaseException | None = None
+        try:
+            with cancel_scope(job.cancel):
+                checkpoint()
+                size = estimate() if estimate is not None else self._estimate(setup)
+                checkpoint()
+        except BaseException as exc:  # the planner's refusal, shown as the job's failure
+            failure, size = exc, 0
+        work = size if isinstance(size, workload.Work) else None
+        nbytes = work.memory_bytes if work is not None else int(size)
+        if failure is None and nbytes > self.memory_budget:
+            failure = SetupError(
+                "numerics.grid",
+                f"the computation needs about {nbytes / 2**30:.3g} GiB while this server "
+                f"allows {self.memory_budget / 2**30:.3g} GiB for all sessions together; "
+                "use fewer screen samples, a smaller grid or a narrower window",
+            )
+        if failure is None and work is not None and work.flops > self.max_work:
+            failure = SetupError(
+                "numerics.grid",
+                f"the computation is {work.describe()}, over this server's limit of "
+                f"{self.max_work / 1e9:.3g} GFLOP per computation; use fewer spectral "
+                "samples, a smaller source, fewer screen samples or a coarser grid",
+            )
+        with self._cond:
+            if failure is not None:
+                self._pending.remove(job)
+                if isinstance(failure, Cancelled):
+                    self.cancelled += 1
+                elif isinstance(failure, SetupError) and failure.path == "numerics.grid":
+                    self.refused += 1
+            else:
+                job.nbytes = nbytes
+                job.heavy = work is not None and work.flops > self.interactive_work
+                self._ensure_lanes()
+            self._cond.notify_all()
+        if failure is not None:
+            job.future.set_exception(failure)
 
     def stats(self) -> dict[str, int]:
         """Queued and running jobs, memory in use and the peaks, for status and tests."""
@@ -255,6 +383,8 @@ class ComputeQueue:
                 "peak_running": self.peak_running,
                 "completed": self.completed,
                 "refused": self.refused,
+                "cancelled": self.cancelled,
+                "heavy_running": len(self._heavy),
                 "lanes": len(self._threads),
             }
 
@@ -298,18 +428,36 @@ class ComputeQueue:
             if left > 0:
                 return None, left
         # By priority, then arrival, passing over jobs that do not fit in memory yet.
-        # Background work takes at most all regular lanes but one and never the spare,
-        # so that a screen result always finds a lane within its turn.
-        background_ok = lane < self.workers and len(self._background) < max(1, self.workers - 1)
+        # Background and heavy work take at most all regular lanes but one and never
+        # the spare, so that a screen result or an ordinary edit always finds a lane.
+        slow_ok = lane < self.workers and len(self._background | self._heavy) < max(
+            1, self.workers - 1
+        )
+        for j in [j for j in self._pending if j.cancel is not None and j.cancel.is_set()]:
+            if j.nbytes is not None:  # still sizing: its own thread drops it
+                self._pending.remove(j)
+                self.cancelled += 1
+                j.future.set_exception(Cancelled())
         fitting = [
             j
             for j in self._pending
-            if self._used + j.nbytes <= self.memory_budget
-            and (background_ok or j.priority < PRIORITY_BACKGROUND)
+            if j.nbytes is not None
+            and self._used + j.nbytes <= self.memory_budget
+            and (slow_ok or (j.priority < PRIORITY_BACKGROUND and not j.heavy))
         ]
         if not fitting:
             return None, None
         job = min(fitting, key=lambda j: (j.priority, j.seq))
+        # Keep arrival order over a job that is still being planned, briefly.
+        now = time.monotonic()
+        ahead = [
+            j.submitted + self.order_grace - now
+            for j in self._pending
+            if j.nbytes is None and (j.priority, j.seq) < (job.priority, job.seq)
+        ]
+        ahead = [t for t in ahead if t > 0]
+        if ahead:
+            return None, max(ahead)
         self._pending.remove(job)
         return job, None
 
@@ -326,6 +474,8 @@ class ComputeQueue:
                 self._started[lane] = time.monotonic()
                 if job.priority >= PRIORITY_BACKGROUND:
                     self._background.add(lane)
+                if job.heavy:
+                    self._heavy.add(lane)
                 self._used += job.nbytes
                 self.peak_bytes = max(self.peak_bytes, self._used)
                 self.peak_running = max(self.peak_running, len(self._started))
@@ -333,8 +483,13 @@ class ComputeQueue:
             try:
                 if job.future.set_running_or_notify_cancel():
                     try:
-                        value = job.fn()
+                        with cancel_scope(job.cancel):
+                            checkpoint()
+                            value = _run_heavy(job.fn, job.cancel) if job.heavy else job.fn()
                     except BaseException as exc:  # delivered to the session as its failure
+                        if isinstance(exc, Cancelled):
+                            with self._cond:
+                                self.cancelled += 1
                         job.future.set_exception(exc)
                     else:
                         job.future.set_result(value)
@@ -342,6 +497,7 @@ class ComputeQueue:
                 with self._cond:
                     del self._started[lane]
                     self._background.discard(lane)
+                    self._heavy.discard(lane)
                     self._used -= job.nbytes
                     self.completed += 1
                     self._cond.notify_all()
@@ -349,6 +505,16 @@ class ComputeQueue:
 
 #: The queue of this process; :func:`server.serving.serve` sets its limits.
 COMPUTE_QUEUE = ComputeQueue()
+
+#: Reading imported snapshots: two at a time, never on the event loop.
+_READERS = ThreadPoolExecutor(
+    max_workers=2, thread_name_prefix="fringebench-read", initializer=_lower_this_thread
+)
+
+
+def offload(fn: Callable[[], Any]) -> Future:
+    """Run ``fn`` (reading a user's file) on a worker thread; its future."""
+    return _READERS.submit(fn)
 
 
 # ------------------------------------------------------------- follow registry

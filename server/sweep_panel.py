@@ -468,7 +468,8 @@ class SweepPanel:
         for ax in (self.axis1, self.axis2):
             keep = ax.path.value
             opts = ({"(none)": _NONE} if ax.optional else {}) | options
-            ax.path.options = opts
+            if ax.path.options != opts:  # unchanged: nothing to send over the shared loop
+                ax.path.options = opts
             if keep in opts.values():
                 ax.path.value = keep
                 self._show_unit(ax)

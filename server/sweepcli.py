@@ -20,6 +20,7 @@ from pathlib import Path
 from typing import Any, TextIO
 
 from compute import snapshot, sweep
+from compute.fileio import new_file_mode
 from compute.snapshot import SnapshotError
 
 __all__ = ["DESCRIPTION", "EPILOG", "HELP", "add_arguments", "csv_text", "run"]
@@ -133,6 +134,7 @@ def _write(path: Path, text: str) -> None:
     except OSError as exc:
         raise BadSweepInput("--out", f"cannot write {str(path)!r} ({exc.strerror})") from None
     try:
+        os.fchmod(fd, new_file_mode())  # as open() would make it, not mkstemp's 0600
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             fh.write(text)
         os.replace(tmp, path)

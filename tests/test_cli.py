@@ -24,7 +24,7 @@ from server import cli
 ROOT = Path(__file__).resolve().parent.parent
 
 
-def run_cli(*args: str, cwd: Path, env: dict | None = None, preexec_fn=None):
+def run_cli(*args: str, cwd: Path, env: dict | None = None, preexec_fn=None, timeout: float = 300):
     """Run ``python -m server.cli ARGS`` as a user would, from ``cwd``."""
     full_env = dict(os.environ, PYTHONPATH=str(ROOT))
     full_env.pop("FRINGEBENCH_DEBUG", None)
@@ -35,7 +35,7 @@ def run_cli(*args: str, cwd: Path, env: dict | None = None, preexec_fn=None):
         env=full_env,
         capture_output=True,
         text=True,
-        timeout=300,
+        timeout=timeout,
         preexec_fn=preexec_fn,
     )
 
@@ -396,6 +396,7 @@ def test_serve_passes_the_defaults(fake_serving):
             "password_file": None,
             "address": None,
             "max_sessions": 16,
+            "max_work": None,
         }
     ]
 
@@ -403,6 +404,7 @@ def test_serve_passes_the_defaults(fake_serving):
 def test_serve_passes_every_option(fake_serving):
     args = ["serve", "--port", "8123", "--preset", "knife-edge", "--open", "--share"]
     args += ["--password-file", "pw.txt", "--address", "0.0.0.0", "--max-sessions", "4"]
+    args += ["--max-work", "50"]
     assert cli.main(args) == 0
     assert fake_serving[-1] == {
         "port": 8123,
@@ -413,6 +415,7 @@ def test_serve_passes_every_option(fake_serving):
         "password_file": "pw.txt",
         "address": "0.0.0.0",
         "max_sessions": 4,
+        "max_work": 50.0,
     }
 
 
@@ -447,3 +450,72 @@ def test_serve_port_range(fake_serving, capsys, port):
     assert cli.main(["serve", "--port", port]) == 2
     assert "port number" in capsys.readouterr().err
     assert fake_serving == []
+
+
+# -- files that are not regular files; the mode of written files ------------------------
+
+
+@pytest.mark.parametrize(
+    "command",
+    [
+        ["check", "{f}"],
+        ["check", "{f}", "--json"],
+        ["render", "{f}", "--out", "r.npz"],
+        ["sweep", "{f}", "--vary", "screen.distance=0.5:1:2", "--out", "s.csv"],
+        ["serve", "--preset", "{f}", "--port", "0"],
+    ],
+    ids=["check", "check-json", "render", "sweep", "serve-preset"],
+)
+def test_a_fifo_is_refused_at_once_with_exit_2(tmp_path, command):
+    # Before the fix, reading a FIFO with no writer blocked forever (the timeout fails it).
+    fifo = tmp_path / "pipe.json"
+    os.mkfifo(fifo)
+    args = [a.replace("{f}", str(fifo)) for a in command]
+    proc = run_cli(*args, cwd=tmp_path, timeout=60)
+    assert proc.returncode == 2, proc.stderr
+    first = proc.stderr.splitlines()[0]
+    assert first.startswith("error: ") and str(fifo) in first
+    assert "not a regular file" in first
+    assert "Traceback" not in proc.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["pipe.json"]  # nothing written
+
+
+def test_a_character_device_is_refused_with_exit_2(tmp_path):
+    proc = run_cli("check", "/dev/zero", cwd=tmp_path, timeout=60)
+    assert proc.returncode == 2
+    assert proc.stderr.startswith("error: /dev/zero: ") and "not a regular file" in proc.stderr
+
+
+@pytest.mark.parametrize("mask", [0o022, 0o002, 0o077])
+def test_render_and_sweep_outputs_honour_the_umask(tmp_path, mask):
+    # Before the fix every output was 0600 (mkstemp's mode) whatever the umask.
+    snap = tmp_path / "slit.json"
+    snap.write_text(json.dumps(small_doc()))
+
+    def set_mask():
+        os.umask(mask)
+
+    args = ["render", str(snap), "--out", "r.npz", "--png", "m.png", "--csv", "c.csv"]
+    proc = run_cli(*args, cwd=tmp_path, preexec_fn=set_mask)
+    assert proc.returncode == 0, proc.stderr
+    sweep = ["sweep", str(snap), "--vary", "screen.distance=0.5:1:2"]
+    proc = run_cli(*sweep, "--out", "s.csv", cwd=tmp_path, preexec_fn=set_mask)
+    assert proc.returncode == 0, proc.stderr
+    for name in ("r.npz", "m.png", "c.csv", "s.csv"):
+        assert (tmp_path / name).stat().st_mode & 0o777 == 0o666 & ~mask, name
+
+
+def test_snapshot_save_honours_the_umask(tmp_path):
+    old = os.umask(0o027)
+    try:
+        snapshot.save(snapshot.from_dict(small_doc()), tmp_path / "s.json")
+    finally:
+        os.umask(old)
+    assert (tmp_path / "s.json").stat().st_mode & 0o777 == 0o640
+
+
+@pytest.mark.parametrize("value", ["0", "-5", "nan", "inf", "lots"])
+def test_serve_max_work_must_be_a_positive_number(fake_serving, capsys, value):
+    assert cli.main(["serve", "--max-work", value]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: argument --max-work:") and fake_serving == []
