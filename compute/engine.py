@@ -62,6 +62,11 @@ class Result:
         return self.plan.validity
 
     @property
+    def verdict(self) -> str:
+        """``'ok'``, ``'marginal'`` or ``'invalid'``: the worst item of the report."""
+        return self.plan.verdict
+
+    @property
     def nbytes(self) -> int:
         extra = sum(getattr(v, "nbytes", 0) for v in self.extras.values())
         return int(
@@ -75,6 +80,7 @@ class Result:
             "method": p.method,
             "variant": p.variant,
             "fresnel_number": float(p.fresnel_number),
+            "verdict": p.verdict,
             "grid": [int(p.ny), int(p.nx)],
             "padded": [int(v) for v in p.padded],
             "pitch": [float(p.dy), float(p.dx)],
@@ -319,6 +325,9 @@ def _propagate(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray, samples=No
     x, y = _transform_axes(p)
     u, power_in = _aperture_field(setup, p, x, y, samples)
     pitch = (p.dx, p.dy)
+    if p.variant == "far_field_nonparaxial":
+        field = propagators.rayleigh_sommerfeld_far_field(u, x, y, lam, z, xs, ys, pitch=pitch)
+        return field, power_in
     if p.method == "rayleigh_sommerfeld":
         if f is not None:
             ly, lx = propagators.lens_phase(x, y, lam, f)

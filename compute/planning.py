@@ -40,13 +40,17 @@ from .model import Setup
 
 __all__ = [
     "DEFAULT_MEMORY_LIMIT",
+    "DEFAULT_TIME_BUDGET",
     "Plan",
     "ValidityItem",
+    "alternatives",
     "plan",
     "screen_axes",
 ]
 
 DEFAULT_MEMORY_LIMIT = 2 * 1024**3
+# Longest estimated propagation, s, that `auto` accepts for a method (see `_route_seconds`).
+DEFAULT_TIME_BUDGET = 20.0
 
 # Accuracy targets of `auto` (rad of neglected phase); the report's limits are looser.
 AUTO_FRAUNHOFER_PHASE = 0.1
@@ -116,6 +120,7 @@ class Plan:
     dtype: str = "complex64"
     output: str = "grid"  # 'grid' (slice the FFT grid), 'points' (matrix transform)
     step: tuple[int, int] = (1, 1)  # FFT-grid samples per screen pixel (x, y)
+    seconds: float = 0.0  # estimated propagation time on the reference machine
 
     def to_dict(self) -> dict:
         return {
@@ -127,6 +132,7 @@ class Plan:
             "reasons": list(self.reasons),
             "memory_bytes": int(self.memory_bytes),
             "fresnel_number": float(self.fresnel_number),
+            "verdict": self.verdict,
             "validity": [v.to_dict() for v in self.validity],
         }
 
@@ -134,6 +140,17 @@ class Plan:
     def worst(self) -> str:
         order = {"ok": 0, "marginal": 1, "invalid": 2}
         return max((v.verdict for v in self.validity), key=order.get, default="ok")
+
+    @property
+    def verdict(self) -> str:
+        """The verdict of the whole result: the worst item of its report.
+
+        ``'invalid'`` means that at least one item of the report is invalid. For
+        ``auto`` that happens only when no method is valid within the memory and
+        time budget (see :func:`plan`); the dashboard, ``check`` and ``render``
+        show it, and ``render --strict`` refuses to write such a result.
+        """
+        return self.worst
 
 
 def screen_axes(setup: Setup) -> tuple[np.ndarray, np.ndarray]:
@@ -266,6 +283,7 @@ def _phases(g: _Geometry, box) -> dict:
     half = 0.5 * max(box[1] - box[0], box[3] - box[2])
     size = 2.0 * half
     rho_ap = math.hypot(_abs_max(box[:2]), _abs_max(box[2:]))
+    rho_centre = 0.5 * math.hypot(box[1] - box[0], box[3] - box[2])
     inv_eff = abs(1.0 / z - (1.0 / g.f if g.f else 0.0))
     rho_sep = math.hypot(_max_sep(box[:2], g.screen[:2]), _max_sep(box[2:], g.screen[2:]))
     return {
@@ -275,6 +293,9 @@ def _phases(g: _Geometry, box) -> dict:
         "fresnel_number": half**2 / (lam * z),
         "fraunhofer_distance": 2.0 * size**2 / lam,
         "fraunhofer_phase": math.pi * rho_ap**2 * inv_eff / lam,
+        # The same phase about the centre of the lit region: what the non-paraxial far
+        # field (expanded about that centre) drops.
+        "far_field_phase": math.pi * rho_centre**2 * inv_eff / lam,
         "max_angle": math.atan2(rho_sep, z),
         "rho_sep": rho_sep,
     }
@@ -303,6 +324,22 @@ def _quartic_phase(box, screen, lam: float, z: float) -> float:
 
 
 def _auto_method(g: _Geometry, ph: dict, reasons: list[str]) -> str:
+    if (
+        g.f is None
+        and not any(g.unbounded)
+        and ph["far_field_phase"] <= AUTO_FRAUNHOFER_PHASE
+        and (
+            ph["paraxial_phase"] > AUTO_PARAXIAL_PHASE
+            or ph["fraunhofer_phase"] > AUTO_FRAUNHOFER_PHASE
+        )
+    ):
+        reasons.append(
+            f"far field at wide angles or off axis: the phase of second order across the "
+            f"aperture is {ph['far_field_phase']:.3g} rad ≤ {AUTO_FRAUNHOFER_PHASE} rad, but the "
+            f"paraxial form would drop {ph['paraxial_phase']:.3g} rad, so the non-paraxial "
+            "Rayleigh–Sommerfeld far field is used at each pixel's direction"
+        )
+        return "far_field"
     if g.f is None and ph["fraunhofer_phase"] <= AUTO_FRAUNHOFER_PHASE:
         reasons.append(
             f"far field: the quadratic phase across the aperture is "
@@ -476,10 +513,12 @@ def _plan_direct_route(g, box, src, setup, dtype, reasons):
     else:
         f_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
         f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
-        px = min(_fraction_pitch(g, w), 1.0 / (2.0 * OVERSAMPLE * f_x))
-        py = min(_fraction_pitch(g, h), 1.0 / (2.0 * OVERSAMPLE * f_y))
+        px = min(_fraction_pitch(g, w), 1.0 / (2.0 * OVERSAMPLE_TRANSFORM * f_x))
+        py = min(_fraction_pitch(g, h), 1.0 / (2.0 * OVERSAMPLE_TRANSFORM * f_y))
         nx, ny = _count(w, px, "aperture.elements"), _count(h, py, "aperture.elements")
     dx, dy = w / nx, h / ny
+    if not user:
+        nx, ny = nx + 2, ny + 2  # an empty pixel on each side for the edge correction
     sny, snx = setup.screen.shape_px()
     pairs = float(nx * ny) * snx * sny
     if pairs > MAX_DIRECT_PAIRS:
@@ -507,6 +546,330 @@ def _plan_direct_route(g, box, src, setup, dtype, reasons):
         centre,
         "points",
         (1, 1),
+    )
+
+
+def _plan_far_field_route(g, box, src, setup, dtype, reasons):
+    """Grid for the non-paraxial Rayleigh–Sommerfeld far field (a non-uniform FFT).
+
+    The samples resolve the smallest feature and the phase exp(−2πi α ξ/λ) of the
+    steepest direction cosine α that reaches the window, with the margin of the
+    single-transform routes.
+    """
+    user = setup.numerics.grid
+    w, h = box[1] - box[0], box[3] - box[2]
+    if user:
+        nx = ny = user
+        dx, dy = w / (nx - 2), h / (ny - 2)
+        reasons.append(f"grid of {user}×{user} set by the user over the lit region")
+    else:
+        f_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
+        f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
+        q = OVERSAMPLE_TRANSFORM
+        dx = min(_fraction_pitch(g, w), 1.0 / (2.0 * q * f_x) if f_x else math.inf)
+        dy = min(_fraction_pitch(g, h), 1.0 / (2.0 * q * f_y) if f_y else math.inf)
+        nx = _count(w, dx, "aperture.elements")
+        ny = _count(h, dy, "aperture.elements")
+        dx, dy = w / nx, h / ny
+        nx, ny = nx + 2, ny + 2
+        reasons.append(
+            f"aperture grid {ny}×{nx} at {length_text(dy)} × {length_text(dx)}: resolves the "
+            f"smallest feature and the steepest direction to the window with {q:g}× margin"
+        )
+    sny, snx = setup.screen.shape_px()
+    b = _bytes_per(dtype)
+    # The aperture samples, the non-uniform FFT's grid (twice oversampled per axis),
+    # the per-chunk coordinates (float64) and the complex128 screen with its irradiance.
+    chunk = min(snx * sny, 1 << 20)
+    mem = b * 5 * nx * ny + 8 * 10 * chunk + 24 * snx * sny
+    centre = (0.5 * (box[0] + box[1]), 0.5 * (box[2] + box[3]))
+    return (
+        "rayleigh_sommerfeld",
+        "far_field_nonparaxial",
+        nx,
+        ny,
+        dx,
+        dy,
+        (ny, nx),
+        mem,
+        centre,
+        "points",
+        (1, 1),
+    )
+
+
+def _method_route(g, box, src, setup, dtype, reasons, method):
+    """The grid route of one method: ``method`` is a name of :data:`METHODS` or ``far_field``."""
+    if method == "fraunhofer":
+        variant = "lens_focal_plane" if g.f is not None else "far_field"
+        return _plan_transform_route(g, box, src, setup, dtype, reasons, method, variant)
+    if method == "far_field":
+        return _plan_far_field_route(g, box, src, setup, dtype, reasons)
+    if method == "fresnel_impulse_response":
+        reasons.append(
+            "Fresnel impulse-response form onto the screen pixels (its grid does not grow "
+            "with the distance)"
+        )
+        return _plan_transform_route(
+            g, box, src, setup, dtype, reasons, "fresnel", "impulse_response"
+        )
+    if method == "fresnel":
+        # Voelz's criterion: the transfer function suits short distances (pitch ≥ λz/L),
+        # the impulse response long ones.
+        trial = _plan_convolution_route(g, box, src, setup, dtype, [], method, "transfer_function")
+        dx_t, big_x = trial[4], trial[6][1]
+        if dx_t * dx_t * big_x >= g.lam * g.z:
+            reasons.append(
+                f"Fresnel transfer-function form: pitch {length_text(dx_t)} ≥ λz/L = "
+                f"{length_text(g.lam * g.z / (dx_t * big_x))} (short distance)"
+            )
+            return _plan_convolution_route(
+                g, box, src, setup, dtype, reasons, method, "transfer_function"
+            )
+        reasons.append(
+            "Fresnel impulse-response form onto the screen pixels: the pitch is below "
+            "λz/L (long distance)"
+        )
+        return _plan_transform_route(g, box, src, setup, dtype, reasons, method, "impulse_response")
+    if method == "angular_spectrum":
+        return _plan_convolution_route(g, box, src, setup, dtype, reasons, method, "band_limited")
+    return _plan_direct_route(g, box, src, setup, dtype, reasons)
+
+
+# --------------------------------------------------------------------------- time estimate
+
+# Rates of the development machine (2 shared cores, numpy with OpenBLAS, pyFFTW and
+# finufft), measured with `fringebench bench`-style runs; a rough guide for choosing
+# among methods, not a promise.
+SECONDS_PER_DIRECT_PAIR = 7e-8  # one aperture sample at one screen point, direct sum
+SECONDS_PER_MAC = 2e-9  # one complex multiply-add of a matrix Fourier transform
+SECONDS_PER_EXP = 2e-8  # one complex exponential of a kernel
+SECONDS_PER_FFT_SAMPLE_LOG = 4e-9  # per sample and per log2 of the size, one FFT
+SECONDS_PER_NUFFT_POINT = 6e-7  # one screen pixel of the non-uniform far field
+SECONDS_FIXED = 0.02
+
+
+def _route_seconds(route, setup: Setup) -> float:
+    """Estimated propagation time of a route, s (see the rates above)."""
+    method, variant, nx, ny, _dx, _dy, padded, _mem, _centre, output, _step = route
+    sny, snx = setup.screen.shape_px()
+    n_ap = float(nx) * ny
+    if variant == "direct":
+        return SECONDS_FIXED + SECONDS_PER_DIRECT_PAIR * n_ap * snx * sny
+    if variant == "far_field_nonparaxial":
+        grid = 4.0 * n_ap
+        return (
+            SECONDS_FIXED
+            + SECONDS_PER_NUFFT_POINT * snx * sny
+            + SECONDS_PER_FFT_SAMPLE_LOG * grid * math.log2(max(grid, 2.0))
+            + SECONDS_PER_EXP * n_ap
+        )
+    if method in ("angular_spectrum",) or variant == "transfer_function":
+        big = float(padded[0]) * padded[1]
+        t = big * (SECONDS_PER_EXP + 2.0 * SECONDS_PER_FFT_SAMPLE_LOG * math.log2(max(big, 2.0)))
+        if output == "points":
+            t += SECONDS_PER_MAC * (big * snx + padded[0] * sny * snx)
+        return SECONDS_FIXED + t
+    macs = min(ny * nx * snx + sny * ny * snx, sny * ny * nx + sny * nx * snx)
+    return SECONDS_FIXED + SECONDS_PER_MAC * macs + SECONDS_PER_EXP * (nx * snx + ny * sny + n_ap)
+
+
+# --------------------------------------------------------------------------- the rule
+
+# Report items that every method shares (the same value and verdict whatever the
+# method): they cannot make one method better than another.
+SHARED_ITEMS = ("max_angle", "screen_sampling")
+_LEVEL = {"ok": 0, "marginal": 1, "invalid": 2}
+# Candidates of `auto`, in the order of the Plan's methods.
+_CANDIDATES = (
+    "fraunhofer",
+    "far_field",
+    "fresnel",
+    "fresnel_impulse_response",
+    "angular_spectrum",
+    "rayleigh_sommerfeld",
+)
+
+
+@dataclass
+class _Candidate:
+    key: str
+    route: tuple
+    reasons: list[str]
+    items: list[ValidityItem]
+    seconds: float
+
+    @property
+    def memory(self) -> int:
+        return self.route[7]
+
+    @property
+    def level(self) -> int:
+        """Worst verdict among the items that depend on the method (0 ok … 2 invalid)."""
+        return max((_LEVEL[v.verdict] for v in self.items if v.key not in SHARED_ITEMS), default=0)
+
+    def name(self) -> str:
+        m, v = self.route[0], self.route[1]
+        if v == "far_field_nonparaxial":
+            return "non-paraxial Rayleigh–Sommerfeld far field"
+        if v in ("far_field", "band_limited", "direct"):
+            return m.replace("_", " ")
+        return f"{m.replace('_', ' ')} ({v.replace('_', ' ')})"
+
+
+def _candidates(g, box, ph, src, setup, dtype) -> dict[str, _Candidate]:
+    """Every method that can be planned for this geometry, with its report and cost."""
+    out: dict[str, _Candidate] = {}
+    for key in _CANDIDATES:
+        if key == "far_field" and (g.f is not None or any(g.unbounded)):
+            continue  # a lens's focal plane is paraxial; an unbounded aperture has no far field
+        r: list[str] = []
+        try:
+            route = _method_route(g, box, src, setup, dtype, r, key)
+        except SetupError:
+            continue
+        if (
+            key == "fresnel_impulse_response"
+            and "fresnel" in out
+            and out["fresnel"].route[1] == route[1]
+        ):
+            continue
+        m, v, _nx, _ny, dx, dy, padded = route[:7]
+        items = _report(g, box, ph, m, v, dx, dy, padded, setup)
+        out[key] = _Candidate(key, route, r, items, _route_seconds(route, setup))
+    return out
+
+
+def _auto_route(g, box, ph, src, setup, dtype, reasons, memory_limit, time_budget):
+    """The rule, in one place: `auto` never returns an invalid method while a valid one fits.
+
+    The preferred method (:func:`_auto_method`: the far field, then Fresnel, then the
+    angular spectrum, by the phases they drop) is kept when its report holds and it
+    fits the memory limit and the time budget, unless the direct Rayleigh–Sommerfeld
+    sum is valid too and estimated faster. Otherwise the valid candidate that fits is
+    taken, the best verdict first, then the preferred one, then the fastest. When no
+    candidate is valid within the budget, the preferred one is returned (or the
+    fastest that fits the memory) and its report says invalid: the verdict of the
+    result is then ``'invalid'`` and the reasons say that no method fits.
+    """
+    pref_reasons: list[str] = []
+    preferred = _auto_method(g, ph, pref_reasons)
+    cands = _candidates(g, box, ph, src, setup, dtype)
+    if preferred not in cands:
+        # It cannot even be planned: let it raise its own message.
+        route = _method_route(g, box, src, setup, dtype, reasons, preferred)
+        reasons[:0] = pref_reasons
+        return route
+    pref = cands[preferred]
+    fits = [c for c in cands.values() if c.memory <= memory_limit]
+    quick = [c for c in fits if c.seconds <= time_budget]
+    budget = (
+        f"the {memory_limit / 2**30:.3g} GiB memory limit and the {time_budget:.3g} s time budget"
+    )
+    choice = None
+    if pref in quick and pref.level == 0:
+        choice = pref
+        reasons.extend(pref_reasons)
+        direct = cands.get("rayleigh_sommerfeld")
+        if direct in quick and direct.level == 0 and direct.seconds < pref.seconds:
+            choice = direct
+            reasons.append(
+                f"the direct Rayleigh–Sommerfeld sum is valid and the cheapest here "
+                f"(about {direct.seconds:.2g} s against {pref.seconds:.2g} s for the "
+                f"{pref.name()})"
+            )
+        reasons.extend(choice.reasons)
+        return choice.route
+    ranked = sorted(quick, key=lambda c: (c.level, c is not pref, c.seconds))
+    if ranked and ranked[0].level < 2:
+        choice = ranked[0]
+    if choice is pref:
+        reasons.extend(pref_reasons)
+    elif choice is not None:
+        why = _why_not(pref, memory_limit, time_budget)
+        reasons.append(
+            f"the {pref.name()} would be {why}; the {choice.name()} is valid and fits {budget}"
+        )
+    else:
+        choice = (
+            pref if pref in fits else min(fits, key=lambda c: (c.level, c.seconds), default=pref)
+        )
+        if choice is pref:
+            reasons.extend(pref_reasons)
+        reasons.append(
+            f"no method is valid within {budget}: the result is computed with the "
+            f"{choice.name()} and marked invalid (see the report)"
+        )
+    reasons.extend(choice.reasons)
+    return choice.route
+
+
+def _why_not(c: _Candidate, memory_limit: int, time_budget: float) -> str:
+    if c.memory > memory_limit:
+        return f"over the memory limit ({c.memory / 2**30:.3g} GiB)"
+    if c.seconds > time_budget:
+        return f"too slow (about {c.seconds:.2g} s)"
+    bad = [v.label.lower() for v in c.items if v.key not in SHARED_ITEMS and _LEVEL[v.verdict] == 2]
+    if bad:
+        return "invalid here (" + "; ".join(bad) + ")"
+    marg = [
+        v.label.lower() for v in c.items if v.key not in SHARED_ITEMS and _LEVEL[v.verdict] == 1
+    ]
+    return "marginal here (" + "; ".join(marg) + ")"
+
+
+def alternatives(
+    setup: Setup,
+    *,
+    memory_limit: int = DEFAULT_MEMORY_LIMIT,
+    time_budget: float = DEFAULT_TIME_BUDGET,
+) -> list[Plan]:
+    """Every method the planner can plan for ``setup``, each with its report.
+
+    The candidates among which ``auto`` chooses (:func:`plan`), including the
+    non-paraxial far field, which has no name of its own in ``numerics.method``
+    (it is the far-field form of ``rayleigh_sommerfeld``). A plan over
+    ``memory_limit`` is listed with its memory estimate; nothing is allocated.
+    """
+    problems = setup.check()
+    if problems:
+        raise SetupError(*problems[0])
+    g = _geometry(setup)
+    if g.lit is None:
+        return [plan(setup, memory_limit=memory_limit, time_budget=time_budget)]
+    box = _lit_with_taper(g)
+    ph = _phases(g, box)
+    dtype = "complex64" if setup.numerics.precision == "single" else "complex128"
+    return [
+        _to_plan(c.route, c.reasons, c.items, c.seconds, g, ph, dtype)
+        for c in _candidates(g, box, ph, setup.source, setup, dtype).values()
+    ]
+
+
+def _to_plan(route, reasons, items, seconds, g, ph, dtype) -> Plan:
+    method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
+    return Plan(
+        method=method,
+        variant=variant,
+        nx=nx,
+        ny=ny,
+        dx=dx,
+        dy=dy,
+        padded=padded,
+        reasons=reasons,
+        memory_bytes=int(mem),
+        fresnel_number=ph["fresnel_number"],
+        validity=items,
+        grid_centre=centre,
+        lit_box=g.lit,
+        taper=(
+            tuple(_taper_width(g) if u else 0.0 for u in g.unbounded) if any(g.unbounded) else None
+        ),
+        babinet=g.babinet,
+        dtype=dtype,
+        output=output,
+        step=step,
+        seconds=seconds,
     )
 
 
@@ -561,7 +924,7 @@ def _finest_period(g: _Geometry, box) -> float:
 def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[ValidityItem]:
     items: list[ValidityItem] = []
     nf = ph["fresnel_number"]
-    far = method == "fraunhofer"
+    far = method == "fraunhofer" or variant == "far_field_nonparaxial"
     paraxial = method in ("fraunhofer", "fresnel")
     lens = g.f is not None
     if lens:
@@ -797,8 +1160,19 @@ def band_limit_of(n: int, d: float, lam: float, z: float) -> float:
 # --------------------------------------------------------------------------- entry point
 
 
-def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
+def plan(
+    setup: Setup,
+    *,
+    memory_limit: int = DEFAULT_MEMORY_LIMIT,
+    time_budget: float = DEFAULT_TIME_BUDGET,
+) -> Plan:
     """Plan the computation of ``setup``: method, grid, pitch, padding and the report.
+
+    With ``numerics.method == 'auto'`` the rule holds (:func:`_auto_route`): the
+    plan is never one that its own report calls invalid while another method is
+    valid within ``memory_limit`` and ``time_budget`` (estimated seconds,
+    :data:`DEFAULT_TIME_BUDGET`). When none is, the plan's :attr:`Plan.verdict` is
+    ``'invalid'`` and its reasons say so.
 
     Raises
     ------
@@ -846,53 +1220,11 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
     box = _lit_with_taper(g)
     ph = _phases(g, box)
     if requested == "auto":
-        method = _auto_method(g, ph, reasons)
+        route = _auto_route(g, box, ph, src, setup, dtype, reasons, memory_limit, time_budget)
     else:
-        method = requested
-        reasons.append(f"method {method.replace('_', ' ')} chosen by the user")
-    if method == "fraunhofer":
-        variant = "lens_focal_plane" if g.f is not None else "far_field"
-        route = _plan_transform_route(g, box, src, setup, dtype, reasons, method, variant)
-    elif method == "fresnel":
-        # Voelz's criterion: the transfer function suits short distances (pitch ≥ λz/L),
-        # the impulse response long ones.
-        trial = _plan_convolution_route(g, box, src, setup, dtype, [], method, "transfer_function")
-        dx_t, big_x = trial[4], trial[6][1]
-        if dx_t * dx_t * big_x >= g.lam * g.z:
-            reasons.append(
-                f"Fresnel transfer-function form: pitch {length_text(dx_t)} ≥ λz/L = "
-                f"{length_text(g.lam * g.z / (dx_t * big_x))} (short distance)"
-            )
-            route = _plan_convolution_route(
-                g, box, src, setup, dtype, reasons, method, "transfer_function"
-            )
-        else:
-            reasons.append(
-                "Fresnel impulse-response form onto the screen pixels: the pitch is below "
-                "λz/L (long distance)"
-            )
-            route = _plan_transform_route(
-                g, box, src, setup, dtype, reasons, method, "impulse_response"
-            )
-    elif method == "angular_spectrum":
-        route = _plan_convolution_route(g, box, src, setup, dtype, reasons, method, "band_limited")
-    else:
-        route = _plan_direct_route(g, box, src, setup, dtype, reasons)
+        reasons.append(f"method {requested.replace('_', ' ')} chosen by the user")
+        route = _method_route(g, box, src, setup, dtype, reasons, requested)
     method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
-    if mem > memory_limit and requested == "auto" and method == "angular_spectrum":
-        # The exact method does not fit; the paraxial one may, and the report says
-        # what it drops.
-        alt = _plan_transform_route(g, box, src, setup, dtype, [], "fresnel", "impulse_response")
-        if alt[7] <= memory_limit:
-            reasons.append(
-                f"the angular spectrum would need {mem / 2**30:.3g} GiB, over the "
-                f"{memory_limit / 2**30:.3g} GiB limit: Fresnel is used instead and the "
-                "report shows what it drops"
-            )
-            route = _plan_transform_route(
-                g, box, src, setup, dtype, reasons, "fresnel", "impulse_response"
-            )
-            method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
     if mem > memory_limit:
         path = "numerics.grid" if setup.numerics.grid else "screen.distance"
         fix = (
@@ -928,4 +1260,5 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
         step=step,
     )
     p.validity = _report(g, box, ph, method, variant, dx, dy, padded, setup)
+    p.seconds = _route_seconds(route, setup)
     return p
