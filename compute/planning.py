@@ -532,7 +532,8 @@ def _plan_direct_route(g, box, src, setup, dtype, reasons):
         f"direct Rayleigh–Sommerfeld sum over {ny}×{nx} aperture samples at every one of "
         f"{sny}×{snx} screen pixels"
     )
-    mem = 16 * (3 * nx * ny + 4_000_000 * 3 + snx * sny * 2)
+    # The aperture samples, one chunk of at most 4e6 sample pairs, the screen.
+    mem = 16 * (3 * nx * ny + 3 * min(4_000_000, pairs) + snx * sny * 2)
     centre = (0.5 * (box[0] + box[1]), 0.5 * (box[2] + box[3]))
     return (
         "rayleigh_sommerfeld",
@@ -712,7 +713,9 @@ class _Candidate:
         m, v = self.route[0], self.route[1]
         if v == "far_field_nonparaxial":
             return "non-paraxial Rayleigh–Sommerfeld far field"
-        if v in ("far_field", "band_limited", "direct"):
+        if v == "direct":
+            return "direct Rayleigh–Sommerfeld sum"
+        if v in ("far_field", "band_limited"):
             return m.replace("_", " ")
         return f"{m.replace('_', ' ')} ({v.replace('_', ' ')})"
 
@@ -791,15 +794,23 @@ def _auto_route(g, box, ph, src, setup, dtype, reasons, memory_limit, time_budge
             f"the {pref.name()} would be {why}; the {choice.name()} is valid and fits {budget}"
         )
     else:
+        # Nothing valid within both budgets: the preferred method when it fits the
+        # memory, else the fastest that does; its report says what does not hold.
         choice = (
-            pref if pref in fits else min(fits, key=lambda c: (c.level, c.seconds), default=pref)
+            pref if pref in fits else min(fits, key=lambda c: (c.seconds, c.level), default=pref)
         )
         if choice is pref:
             reasons.extend(pref_reasons)
-        reasons.append(
-            f"no method is valid within {budget}: the result is computed with the "
-            f"{choice.name()} and marked invalid (see the report)"
-        )
+        if choice.level == 2:
+            reasons.append(
+                f"no method is valid within {budget}: the result is computed with the "
+                f"{choice.name()} and marked invalid (see the report)"
+            )
+        else:
+            reasons.append(
+                f"no method is valid within {budget}; the {choice.name()} holds here and is "
+                f"computed anyway (about {choice.seconds:.2g} s)"
+            )
     reasons.extend(choice.reasons)
     return choice.route
 
