@@ -729,8 +729,8 @@ def _candidates(g, box, ph, src, setup, dtype) -> dict[str, _Candidate]:
         r: list[str] = []
         try:
             route = _method_route(g, box, src, setup, dtype, r, key)
-        except SetupError:
-            continue
+        except (SetupError, ArithmeticError, ValueError):
+            continue  # not plannable here (the preferred method re-raises its own message)
         if (
             key == "fresnel_impulse_response"
             and "fresnel" in out
