@@ -333,11 +333,16 @@ def _auto_method(g: _Geometry, ph: dict, reasons: list[str]) -> str:
             or ph["fraunhofer_phase"] > AUTO_FRAUNHOFER_PHASE
         )
     ):
+        why = (
+            f"the paraxial form would drop {ph['paraxial_phase']:.3g} rad"
+            if ph["paraxial_phase"] > AUTO_PARAXIAL_PHASE
+            else f"the aperture is off axis (the paraxial far field about the axis would drop "
+            f"{ph['fraunhofer_phase']:.3g} rad)"
+        )
         reasons.append(
-            f"far field at wide angles or off axis: the phase of second order across the "
-            f"aperture is {ph['far_field_phase']:.3g} rad ≤ {AUTO_FRAUNHOFER_PHASE} rad, but the "
-            f"paraxial form would drop {ph['paraxial_phase']:.3g} rad, so the non-paraxial "
-            "Rayleigh–Sommerfeld far field is used at each pixel's direction"
+            f"far field: the phase of second order across the aperture about its centre is "
+            f"{ph['far_field_phase']:.3g} rad ≤ {AUTO_FRAUNHOFER_PHASE} rad, but {why}, so the "
+            "non-paraxial Rayleigh–Sommerfeld far field is used at each pixel's direction"
         )
         return "far_field"
     if g.f is None and ph["fraunhofer_phase"] <= AUTO_FRAUNHOFER_PHASE:
@@ -1000,7 +1005,15 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
         )
     )
     fp = ph["fraunhofer_phase"]
-    if far:
+    if variant == "far_field_nonparaxial":
+        # Expanded about the centre of the lit region, not about the axis.
+        fp = ph["far_field_phase"]
+        v = _verdict(fp, FRAUNHOFER_PHASE_LIMITS)
+        s = (
+            f"The far-field form drops a phase of second order of up to {fp:.3g} rad across "
+            "the aperture, about its centre."
+        )
+    elif far:
         v = _verdict(fp, FRAUNHOFER_PHASE_LIMITS)
         s = f"The far-field form drops a quadratic phase of up to {fp:.3g} rad across the aperture."
     else:
