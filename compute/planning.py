@@ -652,14 +652,20 @@ SECONDS_PER_MAC = 2e-9  # one complex multiply-add of a matrix Fourier transform
 SECONDS_PER_EXP = 2e-8  # one complex exponential of a kernel
 SECONDS_PER_FFT_SAMPLE_LOG = 4e-9  # per sample and per log2 of the size, one FFT
 SECONDS_PER_NUFFT_POINT = 6e-7  # one screen pixel of the non-uniform far field
+SECONDS_PER_APERTURE_SAMPLE = 2e-7  # sampling the transmittance and the incident field
 SECONDS_FIXED = 0.02
 
 
 def _route_seconds(route, setup: Setup) -> float:
-    """Estimated propagation time of a route, s (see the rates above)."""
-    method, variant, nx, ny, _dx, _dy, padded, _mem, _centre, output, _step = route
+    """Estimated time of a route, s: sampling the aperture and propagating (rates above)."""
+    nx, ny = route[2], route[3]
     sny, snx = setup.screen.shape_px()
     n_ap = float(nx) * ny
+    return SECONDS_PER_APERTURE_SAMPLE * n_ap + _propagation_seconds(route, snx, sny, n_ap)
+
+
+def _propagation_seconds(route, snx: int, sny: int, n_ap: float) -> float:
+    method, variant, nx, ny, _dx, _dy, padded, _mem, _centre, output, _step = route
     if variant == "direct":
         return SECONDS_FIXED + SECONDS_PER_DIRECT_PAIR * n_ap * snx * sny
     if variant == "far_field_nonparaxial":
