@@ -759,8 +759,8 @@ def _auto_route(g, box, ph, src, setup, dtype, reasons, memory_limit, time_budge
 
     The preferred method (:func:`_auto_method`: the far field, then Fresnel, then the
     angular spectrum, by the phases they drop) is kept when its report holds and it
-    fits the memory limit and the time budget, unless the direct Rayleigh–Sommerfeld
-    sum is valid too and estimated faster. Otherwise the valid candidate that fits is
+    fits the memory limit, unless the direct Rayleigh–Sommerfeld sum is valid too,
+    within the time budget and estimated faster. Otherwise the valid candidate that fits is
     taken, the best verdict first, then the preferred one, then the fastest. When no
     candidate is valid within the budget, the preferred one is returned (or the
     fastest that fits the memory) and its report says invalid: the verdict of the
@@ -781,7 +781,9 @@ def _auto_route(g, box, ph, src, setup, dtype, reasons, memory_limit, time_budge
         f"the {memory_limit / 2**30:.3g} GiB memory limit and the {time_budget:.3g} s time budget"
     )
     choice = None
-    if pref in quick and pref.level == 0:
+    if pref in fits and pref.level == 0:
+        # The time budget bounds the alternatives (the direct sum above all); the
+        # preferred method is kept when it holds and fits the memory, as before.
         choice = pref
         reasons.extend(pref_reasons)
         direct = cands.get("rayleigh_sommerfeld")
