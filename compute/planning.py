@@ -405,14 +405,16 @@ def _plan_transform_route(g, box, src, setup, dtype, reasons, method, variant):
     return method, variant, nx, ny, dx, dy, (ny, nx), mem, centre, "points", (1, 1)
 
 
-def _plan_convolution_route(g, box, src, setup, dtype, reasons, method, variant):
+def _plan_convolution_route(g, box, src, setup, dtype, reasons, method, variant, need=None):
     """Grid for the FFT convolution methods (angular spectrum, Fresnel transfer function).
 
     The window holds the lit region and the screen window; it is zero-padded to
     twice that so the circular convolution of the FFT equals the linear one.
     The pitch divides the screen pixel pitch, and the grid is placed so that
     screen pixel centres fall on grid samples: the screen is read off the
-    inverse FFT without interpolation.
+    inverse FFT without interpolation. ``need``, when given, is the highest
+    spatial frequency (x, y) to carry in place of the steepest geometric angle;
+    the kernel then has to reach only as far as light of the grid's band travels.
     """
     user = setup.numerics.grid
     s = g.screen
@@ -424,16 +426,23 @@ def _plan_convolution_route(g, box, src, setup, dtype, reasons, method, variant)
     # or the ringing of its cut-off reaches the window. 2.5 rather than 2: the top
     # fifth of the band is rolled off.
     reach = math.sqrt(g.lam * abs(g.z)) * KERNEL_REACH_FRESNEL_SCALES
-    span_x = max(2.0 * lx, 2.5 * (_max_sep(box[:2], s[:2]) + reach))
-    span_y = max(2.0 * ly, 2.5 * (_max_sep(box[2:], s[2:]) + reach))
+    sep_x, sep_y = _max_sep(box[:2], s[:2]), _max_sep(box[2:], s[2:])
+    if need is not None:
+        sep_x = min(sep_x, _travel(g, OVERSAMPLE * need[0]))
+        sep_y = min(sep_y, _travel(g, OVERSAMPLE * need[1]))
+    span_x = max(2.0 * lx, 2.5 * (sep_x + reach))
+    span_y = max(2.0 * ly, 2.5 * (sep_y + reach))
     if user:
         big_x = big_y = user
         dx, dy = span_x / user, span_y / user
         mx = my = 0
         reasons.append(f"FFT grid {user}×{user} set by the user over twice the window")
     else:
-        f_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
-        f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
+        if need is None:
+            f_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
+            f_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
+        else:
+            f_x, f_y = need
         px = min(_fraction_pitch(g, box[1] - box[0]), 1.0 / (2.0 * OVERSAMPLE * f_x))
         py = min(_fraction_pitch(g, box[3] - box[2]), 1.0 / (2.0 * OVERSAMPLE * f_y))
         mx = _count(g.dxs, px, "screen.samples") if g.dxs > px else 1
@@ -466,6 +475,12 @@ def _plan_convolution_route(g, box, src, setup, dtype, reasons, method, variant)
     n_ap_x = max(2, math.ceil((box[1] - box[0]) / dx) + 2)
     n_ap_y = max(2, math.ceil((box[3] - box[2]) / dy) + 2)
     return method, variant, n_ap_x, n_ap_y, dx, dy, (big_y, big_x), mem, (cx, cy), output, step
+
+
+def _travel(g: _Geometry, f: float) -> float:
+    """Lateral distance light of spatial frequency ``f`` travels over the distance, m."""
+    sin = min(g.lam * f, 0.999)
+    return abs(g.z) * sin / math.sqrt(1.0 - sin * sin)
 
 
 def _plan_direct_route(g, box, src, setup, dtype, reasons):
@@ -507,6 +522,177 @@ def _plan_direct_route(g, box, src, setup, dtype, reasons):
         centre,
         "points",
         (1, 1),
+    )
+
+
+# --------------------------------------------------------------------------- power-limited band
+
+# A large near-field window: the steepest geometric angle would need a grid far over
+# the memory limit, while almost all of the light that reaches the window is at low
+# spatial frequencies. The grid is then sized by the band that holds all but a stated
+# fraction of the power of the propagated aperture field; the report states the fraction.
+POWER_NEGLECTED_LIMITS = (5e-4, 5e-3)  # ok below the first, marginal below the second
+# Fractions tried in turn, the smallest first; the first grid that fits is used.
+POWER_NEGLECTED_STEPS = (1e-4, 2e-4, 5e-4, 1e-3, 2e-3, 5e-3, 1e-2)
+POWER_ESTIMATE_SAMPLES = 1024  # samples per side of the grid that measures the spectrum
+_POWER_FIT_BAND = (0.05, 0.2)  # of the estimate's sampling frequency: where the tail is fitted
+
+
+@dataclass
+class _AxisSpectrum:
+    """Power spectrum of the aperture field along one axis, as a tail fraction.
+
+    ``tail(f)`` is the fraction of the power at spatial frequencies |f_axis| > f:
+    measured up to ``f_top``, and beyond it the tail of a hard edge, whose power
+    density falls as 1/f² (so the power beyond f as ``k/f``).
+    """
+
+    freqs: np.ndarray  # |f| of the measured bins, ascending, cycles/m
+    beyond: np.ndarray  # fraction of the power above each bin, up to f_top
+    f_top: float
+    k: float
+
+    def tail(self, f: float) -> float:
+        if f >= self.f_top:
+            return self.k / f
+        i = int(np.searchsorted(self.freqs, f, side="right"))
+        measured = float(self.beyond[i - 1]) if i > 0 else 1.0
+        return measured + self.k / self.f_top
+
+    def band(self, fraction: float) -> float:
+        """The smallest frequency beyond which at most ``fraction`` of the power lies."""
+        if self.k / self.f_top > fraction:
+            return self.k / fraction
+        left = fraction - self.k / self.f_top
+        ok = np.nonzero(self.beyond <= left)[0]
+        return float(self.freqs[ok[0]]) if ok.size else self.f_top
+
+
+def _raised_cosine(coord: np.ndarray, lo: float, hi: float, t_lo: float, t_hi: float):
+    w = np.ones_like(coord)
+    if t_lo > 0:
+        w *= 0.5 * (1.0 + np.cos(np.pi * np.clip((lo - coord) / t_lo, 0.0, 1.0)))
+    if t_hi > 0:
+        w *= 0.5 * (1.0 + np.cos(np.pi * np.clip((coord - hi) / t_hi, 0.0, 1.0)))
+    return w
+
+
+def _power_spectra(g: _Geometry, box, setup: Setup):
+    """Measured power spectra of the propagated aperture field along x and y, or None.
+
+    The aperture field (incident field × transmittance, the complement on a clear
+    background, tapered where the aperture is unbounded) is sampled on a grid of
+    :data:`POWER_ESTIMATE_SAMPLES` per side over the lit region; the squared moduli
+    of its transforms along one axis, summed over the other (Parseval), give the
+    power per frequency bin. Above ``0.2/h`` the 1/f² density of a straight edge
+    (Born & Wolf, *Principles of Optics*, 7th ed., §8.7: the edge diffracts a field
+    falling as 1/(π u) from the shadow boundary) extends the measurement, fitted
+    over ``0.05/h … 0.2/h``, where sampling the edge changes its spectrum by less
+    than a tenth.
+
+    None when the estimate cannot be trusted: a feature finer than four estimate
+    samples, a source phase the estimate grid cannot carry, or a lens.
+    """
+    if g.f is not None:
+        return None
+    n = POWER_ESTIMATE_SAMPLES
+    pad = 4
+    hx = (box[1] - box[0]) / (n - 2 * pad)
+    hy = (box[3] - box[2]) / (n - 2 * pad)
+    if not (hx > 0 and hy > 0) or (math.isfinite(g.feature) and g.feature < 4.0 * max(hx, hy)):
+        return None
+    src = setup.source
+    ftx, fty = sources.local_frequency(src, _abs_max(box[:2]), _abs_max(box[2:]))
+    if ftx * hx > 0.05 or fty * hy > 0.05:
+        return None
+    x = box[0] - pad * hx + (np.arange(n) + 0.5) * hx
+    y = box[2] - pad * hy + (np.arange(n) + 0.5) * hy
+    t = apertures.transmittance(setup.aperture, x, y, pitch=(hx, hy))
+    if g.babinet:
+        t = 1.0 - t
+    u = sources.incident_field(src, x, y) * t
+    if any(g.unbounded):
+        tw = _taper_width(g)
+        x0, x1, y0, y1 = g.lit
+        un = g.unbounded
+        u *= _raised_cosine(y, y0, y1, tw * un[2], tw * un[3])[:, None]
+        u *= _raised_cosine(x, x0, x1, tw * un[0], tw * un[1])[None, :]
+    out = []
+    for axis, h in ((1, hx), (0, hy)):
+        s = np.abs(np.fft.fft(u, axis=axis)) ** 2
+        s = s.sum(axis=1 - axis)
+        total = float(s.sum())
+        if not total > 0:
+            return None
+        f = np.abs(np.fft.fftfreq(n, h))
+        order = np.argsort(f, kind="stable")
+        f, s = f[order], s[order] / s.sum()
+        f_top = _POWER_FIT_BAND[1] / h
+        inside = f <= f_top
+        f, s = f[inside], s[inside]
+        beyond = s.sum() - np.cumsum(s)
+        fit = (f >= _POWER_FIT_BAND[0] / h) & (f > 0)
+        density = s[fit] * (n * h)  # per unit frequency
+        # each |f| holds two bins (±f): the density in |f| is twice that of one bin
+        k = 2.0 * float(np.median(density * f[fit] ** 2)) if fit.any() else 0.0
+        beyond = np.clip(beyond, 0.0, None)
+        out.append(_AxisSpectrum(freqs=f, beyond=beyond, f_top=f_top, k=max(k, 0.0)))
+    return out[0], out[1]
+
+
+def _plan_power_route(g, box, src, setup, dtype, reasons, memory_limit):
+    """The angular spectrum on a grid sized by the power that reaches the window.
+
+    Returns the route and the report's items (the needed frequencies and the
+    neglected fraction), or None when the spectrum cannot be measured or the
+    grid still does not fit. Tries the fractions of :data:`POWER_NEGLECTED_STEPS`
+    in turn, the smallest first.
+    """
+    spectra = _power_spectra(g, box, setup)
+    if spectra is None:
+        return None
+    geo = (
+        _needed_frequency(g, box, src, paraxial_out=False, axis=0),
+        _needed_frequency(g, box, src, paraxial_out=False, axis=1),
+    )
+    for limit in POWER_NEGLECTED_STEPS:
+        need = tuple(
+            min(geo[a], max(spectra[a].band(0.5 * limit), 1e-3 / (box[2 * a + 1] - box[2 * a])))
+            for a in (0, 1)
+        )
+        trial: list[str] = []
+        route = _plan_convolution_route(
+            g, box, src, setup, dtype, trial, "angular_spectrum", "band_limited", need=need
+        )
+        if route[7] <= memory_limit:
+            # The band the grid carries: the planned pitch may be finer than the need.
+            carried = (1.0 / (2.0 * OVERSAMPLE * route[4]), 1.0 / (2.0 * OVERSAMPLE * route[5]))
+            fraction = sum(
+                spectra[a].tail(carried[a]) if carried[a] < geo[a] else 0.0 for a in (0, 1)
+            )
+            reasons.append(
+                "a grid for the steepest geometric angle would not fit the memory limit: the "
+                "grid is sized by the spatial frequencies that carry the light reaching the "
+                f"window (up to {need[0]:.3g} and {need[1]:.3g} cycles/m along x and y), "
+                f"neglecting an estimated {fraction:.2g} of the power"
+            )
+            reasons.extend(t.replace("the steepest needed angle", "that band") for t in trial)
+            return route, need, fraction
+    return None
+
+
+def _power_item(fraction: float) -> ValidityItem:
+    v = _verdict(fraction, POWER_NEGLECTED_LIMITS)
+    return ValidityItem(
+        "power_neglected",
+        "Power outside the grid's band",
+        fraction,
+        POWER_NEGLECTED_LIMITS[0],
+        "",
+        v,
+        f"The grid carries the spatial frequencies that hold all but {fraction:.2g} of the "
+        "power of the aperture field; the light neglected is the weak, steep diffraction "
+        "of the edges far from them.",
     )
 
 
@@ -558,7 +744,10 @@ def _finest_period(g: _Geometry, box) -> float:
     return best
 
 
-def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[ValidityItem]:
+def _report(
+    g, box, ph, method, variant, dx, dy, padded, setup, need=None, power_fraction=None
+) -> list[ValidityItem]:
+    """The validity report; ``need`` and ``power_fraction`` come from a power-sized grid."""
     items: list[ValidityItem] = []
     nf = ph["fresnel_number"]
     far = method == "fraunhofer"
@@ -701,6 +890,8 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
         _needed_frequency(g, box, src, paraxial_out=paraxial and method != "fresnel", axis=0) * dx,
         _needed_frequency(g, box, src, paraxial_out=paraxial and method != "fresnel", axis=1) * dy,
     )
+    if need is not None:
+        f_need = max(need[0] * dx, need[1] * dy)
     margin = 0.5 / f_need if f_need > 0 else math.inf
     v = _verdict_low(margin, (1.0, 0.5))
     items.append(
@@ -735,6 +926,8 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
         uly = band_limit_of(padded[0], dy, g.lam, g.z)
         need_x = _needed_frequency(g, box, src, paraxial_out=False, axis=0)
         need_y = _needed_frequency(g, box, src, paraxial_out=False, axis=1)
+        if need is not None:
+            need_x, need_y = need
         r = min(ulx / need_x if need_x else math.inf, uly / need_y if need_y else math.inf)
         v = _verdict_low(r, (1.0, 0.7))
         items.append(
@@ -748,6 +941,8 @@ def _report(g, box, ph, method, variant, dx, dy, padded, setup) -> list[Validity
                 f"The band limit keeps {min(r, 99):.3g}× the frequencies that reach the window.",
             )
         )
+    if power_fraction is not None:
+        items.append(_power_item(power_fraction))
     period = _finest_period(g, box)
     ratio = period / (2.0 * max(g.dxs, g.dys))
     v = _verdict_low(ratio, (1.0, 0.5))
@@ -879,6 +1074,14 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
     else:
         route = _plan_direct_route(g, box, src, setup, dtype, reasons)
     method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
+    need = power_fraction = None
+    if mem > memory_limit and method == "angular_spectrum" and not setup.numerics.grid:
+        sized_reasons: list[str] = []
+        sized = _plan_power_route(g, box, src, setup, dtype, sized_reasons, memory_limit)
+        if sized is not None:
+            route, need, power_fraction = sized
+            reasons[:] = [r for r in reasons if not r.startswith("FFT grid")] + sized_reasons
+            method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
     if mem > memory_limit and requested == "auto" and method == "angular_spectrum":
         # The exact method does not fit; the paraxial one may, and the report says
         # what it drops.
@@ -927,5 +1130,5 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
         output=output,
         step=step,
     )
-    p.validity = _report(g, box, ph, method, variant, dx, dy, padded, setup)
+    p.validity = _report(g, box, ph, method, variant, dx, dy, padded, setup, need, power_fraction)
     return p
