@@ -38,7 +38,16 @@ __all__ = [
 
 @dataclass
 class Result:
-    """A computed screen: coordinates, field, irradiance, and how they were obtained."""
+    """A computed screen: coordinates, field, irradiance, and how they were obtained.
+
+    ``x`` and ``y`` are the screen pixel centres; ``field[j, i]`` and
+    ``intensity[j, i]`` are the values at the point (``x[i]``, ``y[j]``), point
+    samples, not pixel averages (a camera integrates over its pixels instead).
+    ``intensity`` is |U|², the irradiance of the local wave in W/m², not projected
+    on the screen's normal at oblique angles. ``power_in`` is ∫|U|² dA over the
+    aperture plane behind the aperture (None on a clear background); for light at
+    an angle θ to the axis the power crossing that plane is ∫|U|² cos θ dA.
+    """
 
     x: np.ndarray
     y: np.ndarray
