@@ -269,11 +269,13 @@ KERNEL_CACHE = _KernelCache()
 
 def _kernel(p: Plan, lam: float, z: float) -> np.ndarray:
     shape = tuple(p.padded)
-    key = (p.variant, shape, p.dx, p.dy, lam, z, p.dtype)
+    key = (p.variant, shape, p.dx, p.dy, lam, z, p.dtype, p.band)
     if p.method == "angular_spectrum":
         return KERNEL_CACHE.get(
             key,
-            lambda: propagators.angular_spectrum_kernel(shape, p.dx, p.dy, lam, z, dtype=p.dtype),
+            lambda: propagators.angular_spectrum_kernel(
+                shape, p.dx, p.dy, lam, z, band=p.band, dtype=p.dtype
+            ),
         )
     return KERNEL_CACHE.get(
         key, lambda: propagators.fresnel_transfer_kernel(shape, p.dx, p.dy, lam, z, dtype=p.dtype)

@@ -116,6 +116,9 @@ class Plan:
     dtype: str = "complex64"
     output: str = "grid"  # 'grid' (slice the FFT grid), 'points' (matrix transform)
     step: tuple[int, int] = (1, 1)  # FFT-grid samples per screen pixel (x, y)
+    # A grid sized by the power that reaches the window: the band (x, y) it carries,
+    # cycles/m, beyond which the kernel rolls off (inf on an axis sized by geometry).
+    band: tuple[float, float] | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -532,6 +535,9 @@ def _plan_direct_route(g, box, src, setup, dtype, reasons):
 # spatial frequencies. The grid is then sized by the band that holds all but a stated
 # fraction of the power of the propagated aperture field; the report states the fraction.
 POWER_NEGLECTED_LIMITS = (5e-4, 5e-3)  # ok below the first, marginal below the second
+# The edge waves left out change the irradiance where they meet the direct light by up
+# to this fraction of the local irradiance: ok, marginal.
+FRINGE_NEGLECTED_LIMITS = (0.02, 0.1)
 # Fractions tried in turn, the smallest first; the first grid that fits is used.
 POWER_NEGLECTED_STEPS = (1e-4, 2e-4, 5e-4, 1e-3, 2e-3, 5e-3, 1e-2)
 POWER_ESTIMATE_SAMPLES = 1024  # samples per side of the grid that measures the spectrum
@@ -670,6 +676,10 @@ def _plan_power_route(g, box, src, setup, dtype, reasons, memory_limit):
             fraction = sum(
                 spectra[a].tail(carried[a]) if carried[a] < geo[a] else 0.0 for a in (0, 1)
             )
+            fringe = max(
+                _fringe_bound(g, box, spectra[a], carried[a], a) if carried[a] < geo[a] else 0.0
+                for a in (0, 1)
+            )
             reasons.append(
                 "a grid for the steepest geometric angle would not fit the memory limit: the "
                 "grid is sized by the spatial frequencies that carry the light reaching the "
@@ -677,23 +687,54 @@ def _plan_power_route(g, box, src, setup, dtype, reasons, memory_limit):
                 f"neglecting an estimated {fraction:.2g} of the power"
             )
             reasons.extend(t.replace("the steepest needed angle", "that band") for t in trial)
-            return route, need, fraction
+            band = tuple(carried[a] if carried[a] < geo[a] else math.inf for a in (0, 1))
+            return route, need, (fraction, fringe, _travel(g, max(carried))), band
     return None
 
 
-def _power_item(fraction: float) -> ValidityItem:
+def _fringe_bound(g: _Geometry, box, spectrum: _AxisSpectrum, f: float, axis: int) -> float:
+    """Largest change of the irradiance, relative, by the edge waves beyond ``f``.
+
+    A straight edge's diffracted wave at u = √(2/(λz))·x from the shadow boundary has
+    the relative amplitude 1/(π u √2) (Born & Wolf, *Principles of Optics*, 7th ed.,
+    §8.7, the asymptotic Fresnel integrals); the band ends at x = λ z f, where it
+    beats with the direct light by up to 1/(π f √(λz)). An edge across the whole lit
+    width W with the mean irradiance has the tail k = 1/(2π² W); a weaker tail scales
+    the amplitude by √(k / that).
+    """
+    width = box[2 * axis + 1] - box[2 * axis]
+    strength = min(1.0, math.sqrt(2.0 * math.pi**2 * width * spectrum.k))
+    return strength / (math.pi * f * math.sqrt(g.lam * abs(g.z)))
+
+
+def _power_items(power: tuple[float, float, float]) -> list[ValidityItem]:
+    fraction, fringe, reach = power
     v = _verdict(fraction, POWER_NEGLECTED_LIMITS)
-    return ValidityItem(
-        "power_neglected",
-        "Power outside the grid's band",
-        fraction,
-        POWER_NEGLECTED_LIMITS[0],
-        "",
-        v,
-        f"The grid carries the spatial frequencies that hold all but {fraction:.2g} of the "
-        "power of the aperture field; the light neglected is the weak, steep diffraction "
-        "of the edges far from them.",
-    )
+    vf = _verdict(fringe, FRINGE_NEGLECTED_LIMITS)
+    return [
+        ValidityItem(
+            "power_neglected",
+            "Power outside the grid's band",
+            fraction,
+            POWER_NEGLECTED_LIMITS[0],
+            "",
+            v,
+            f"The grid carries the spatial frequencies that hold all but {fraction:.2g} of "
+            "the power of the aperture field; the light neglected is the weak, steep "
+            "diffraction of the edges far from them.",
+        ),
+        ValidityItem(
+            "fringes_neglected",
+            "Edge fringes left out, relative",
+            fringe,
+            FRINGE_NEGLECTED_LIMITS[0],
+            "",
+            vf,
+            f"Farther than {length_text(reach)} from an edge its diffracted wave is left out; "
+            f"with the direct light it would make fringes of up to {fringe:.2g} of the local "
+            "irradiance.",
+        ),
+    ]
 
 
 # --------------------------------------------------------------------------- report
@@ -942,7 +983,7 @@ def _report(
             )
         )
     if power_fraction is not None:
-        items.append(_power_item(power_fraction))
+        items.extend(_power_items(power_fraction))
     period = _finest_period(g, box)
     ratio = period / (2.0 * max(g.dxs, g.dys))
     v = _verdict_low(ratio, (1.0, 0.5))
@@ -1074,12 +1115,12 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
     else:
         route = _plan_direct_route(g, box, src, setup, dtype, reasons)
     method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
-    need = power_fraction = None
+    need = power_fraction = band = None
     if mem > memory_limit and method == "angular_spectrum" and not setup.numerics.grid:
         sized_reasons: list[str] = []
         sized = _plan_power_route(g, box, src, setup, dtype, sized_reasons, memory_limit)
         if sized is not None:
-            route, need, power_fraction = sized
+            route, need, power_fraction, band = sized
             reasons[:] = [r for r in reasons if not r.startswith("FFT grid")] + sized_reasons
             method, variant, nx, ny, dx, dy, padded, mem, centre, output, step = route
     if mem > memory_limit and requested == "auto" and method == "angular_spectrum":
@@ -1129,6 +1170,7 @@ def plan(setup: Setup, *, memory_limit: int = DEFAULT_MEMORY_LIMIT) -> Plan:
         dtype=dtype,
         output=output,
         step=step,
+        band=band,
     )
     p.validity = _report(g, box, ph, method, variant, dx, dy, padded, setup, need, power_fraction)
     return p
