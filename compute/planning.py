@@ -596,8 +596,12 @@ def _power_spectra(g: _Geometry, box, setup: Setup):
     over ``0.05/h … 0.2/h``, where sampling the edge changes its spectrum by less
     than a tenth.
 
+    The incident phase (a tilt, a beam's curvature, a point source's sphere) is
+    taken off: the spectra are those of |incident| × transmittance, and the
+    caller adds the source's largest local frequency to the band.
+
     None when the estimate cannot be trusted: a feature finer than four estimate
-    samples, a source phase the estimate grid cannot carry, or a lens.
+    samples, or a lens.
     """
     if g.f is not None:
         return None
@@ -608,15 +612,12 @@ def _power_spectra(g: _Geometry, box, setup: Setup):
     if not (hx > 0 and hy > 0) or (math.isfinite(g.feature) and g.feature < 4.0 * max(hx, hy)):
         return None
     src = setup.source
-    ftx, fty = sources.local_frequency(src, _abs_max(box[:2]), _abs_max(box[2:]))
-    if ftx * hx > 0.05 or fty * hy > 0.05:
-        return None
     x = box[0] - pad * hx + (np.arange(n) + 0.5) * hx
     y = box[2] - pad * hy + (np.arange(n) + 0.5) * hy
     t = apertures.transmittance(setup.aperture, x, y, pitch=(hx, hy))
     if g.babinet:
         t = 1.0 - t
-    u = sources.incident_field(src, x, y) * t
+    u = np.abs(sources.incident_field(src, x, y)) * t
     if any(g.unbounded):
         tw = _taper_width(g)
         x0, x1, y0, y1 = g.lit
@@ -661,9 +662,15 @@ def _plan_power_route(g, box, src, setup, dtype, reasons, memory_limit):
         _needed_frequency(g, box, src, paraxial_out=False, axis=0),
         _needed_frequency(g, box, src, paraxial_out=False, axis=1),
     )
+    # The spectra are of the field without its incident phase: the source's local
+    # frequency shifts every component by at most f_src.
+    f_src = sources.local_frequency(src, _abs_max(box[:2]), _abs_max(box[2:]))
     for limit in POWER_NEGLECTED_STEPS:
         need = tuple(
-            min(geo[a], max(spectra[a].band(0.5 * limit), 1e-3 / (box[2 * a + 1] - box[2 * a])))
+            min(
+                geo[a],
+                f_src[a] + max(spectra[a].band(0.5 * limit), 1e-3 / (box[2 * a + 1] - box[2 * a])),
+            )
             for a in (0, 1)
         )
         trial: list[str] = []
@@ -673,11 +680,10 @@ def _plan_power_route(g, box, src, setup, dtype, reasons, memory_limit):
         if route[7] <= memory_limit:
             # The band the grid carries: the planned pitch may be finer than the need.
             carried = (1.0 / (2.0 * OVERSAMPLE * route[4]), 1.0 / (2.0 * OVERSAMPLE * route[5]))
-            fraction = sum(
-                spectra[a].tail(carried[a]) if carried[a] < geo[a] else 0.0 for a in (0, 1)
-            )
+            own = [carried[a] - f_src[a] for a in (0, 1)]  # the band about the local carrier
+            fraction = sum(spectra[a].tail(own[a]) if carried[a] < geo[a] else 0.0 for a in (0, 1))
             fringe = max(
-                _fringe_bound(g, box, spectra[a], carried[a], a) if carried[a] < geo[a] else 0.0
+                _fringe_bound(g, box, spectra[a], own[a], a) if carried[a] < geo[a] else 0.0
                 for a in (0, 1)
             )
             reasons.append(
