@@ -586,8 +586,8 @@ def _raised_cosine(coord: np.ndarray, lo: float, hi: float, t_lo: float, t_hi: f
 def _power_spectra(g: _Geometry, box, setup: Setup):
     """Measured power spectra of the propagated aperture field along x and y, or None.
 
-    The aperture field (incident field × transmittance, the complement on a clear
-    background, tapered where the aperture is unbounded) is sampled on a grid of
+    The aperture field (|incident field| × transmittance, the complement on a
+    clear background, tapered where the aperture is unbounded) is sampled on a grid of
     :data:`POWER_ESTIMATE_SAMPLES` per side over the lit region; the squared moduli
     of its transforms along one axis, summed over the other (Parseval), give the
     power per frequency bin. Above ``0.2/h`` the 1/f² density of a straight edge
@@ -680,12 +680,13 @@ def _plan_power_route(g, box, src, setup, dtype, reasons, memory_limit):
         if route[7] <= memory_limit:
             # The band the grid carries: the planned pitch may be finer than the need.
             carried = (1.0 / (2.0 * OVERSAMPLE * route[4]), 1.0 / (2.0 * OVERSAMPLE * route[5]))
-            own = [carried[a] - f_src[a] for a in (0, 1)]  # the band about the local carrier
-            fraction = sum(spectra[a].tail(own[a]) if carried[a] < geo[a] else 0.0 for a in (0, 1))
-            fringe = max(
-                _fringe_bound(g, box, spectra[a], own[a], a) if carried[a] < geo[a] else 0.0
-                for a in (0, 1)
-            )
+            # the band about the local carrier (positive: carried ≥ need > f_src when sized)
+            own = [max(carried[a] - f_src[a], 1e-12 * carried[a]) for a in (0, 1)]
+            limited = [a for a in (0, 1) if carried[a] < geo[a]]
+            fraction = sum(spectra[a].tail(own[a]) for a in limited)
+            bounds = [_fringe_bound(g, box, spectra[a], own[a], a) for a in limited]
+            fringe = max(bounds, default=0.0)
+            reach = min((_travel(g, own[a]) for a in limited), default=math.inf)
             reasons.append(
                 "a grid for the steepest geometric angle would not fit the memory limit: the "
                 "grid is sized by the spatial frequencies that carry the light reaching the "
@@ -693,8 +694,8 @@ def _plan_power_route(g, box, src, setup, dtype, reasons, memory_limit):
                 f"neglecting an estimated {fraction:.2g} of the power"
             )
             reasons.extend(t.replace("the steepest needed angle", "that band") for t in trial)
-            band = tuple(carried[a] if carried[a] < geo[a] else math.inf for a in (0, 1))
-            return route, need, (fraction, fringe, _travel(g, max(carried))), band
+            band = tuple(carried[a] if a in limited else math.inf for a in (0, 1))
+            return route, need, (fraction, fringe, reach), band
     return None
 
 
