@@ -196,3 +196,22 @@ def test_the_stated_fringe_bound_holds_against_the_full_grid():
     diff = np.abs(sized.intensity - full.intensity) / 100.0
     assert diff.max() <= bound
     assert diff.max() > 0.2 * bound  # the bound is not vacuous either
+
+
+def test_the_kernel_rolls_off_beyond_the_carried_band_only():
+    # The band filter leaves the angular-spectrum transfer function (Goodman §3.10)
+    # untouched up to the band, rolls it off with a raised cosine to 1.5× the band
+    # and removes it beyond; an infinite band leaves that axis alone.
+    from compute import propagators
+
+    shape, d, z = (64, 256), 1e-6, 1e-4  # short: the kernel's own band limit stays open
+    plain = propagators.angular_spectrum_kernel(shape, d, d, LAM, z, dtype=np.complex128)
+    band = (1e5, math.inf)
+    cut = propagators.angular_spectrum_kernel(shape, d, d, LAM, z, band=band, dtype=np.complex128)
+    fx = np.abs(np.fft.fftfreq(shape[1], d))
+    np.testing.assert_array_equal(cut[:, fx <= band[0]], plain[:, fx <= band[0]])
+    assert np.all(cut[:, fx >= 1.5 * band[0]] == 0)
+    mid = (fx > band[0]) & (fx < 1.5 * band[0])
+    assert np.abs(plain[:8, mid]).min() > 0.5  # low |fy| rows: inside the own band limit
+    expected = 0.5 * (1 + np.cos(np.pi * (fx[mid] - band[0]) / (0.5 * band[0])))
+    np.testing.assert_allclose(cut[:, mid], plain[:, mid] * expected, rtol=0, atol=1e-12)
