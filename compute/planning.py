@@ -951,7 +951,11 @@ def _report(
             "",
             v,
             f"The grid carries {margin:.3g}× the highest spatial frequency that reaches the "
-            "screen window.",
+            + (
+                "screen window."
+                if need is None
+                else "screen window with all but the neglected power below."
+            ),
         )
     )
     if variant == "transfer_function":
