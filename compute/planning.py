@@ -950,11 +950,12 @@ def _report(
             1.0,
             "",
             v,
-            f"The grid carries {margin:.3g}× the highest spatial frequency that reaches the "
-            + (
-                "screen window."
+            (
+                f"The grid carries {margin:.3g}× the highest spatial frequency that reaches "
+                "the screen window."
                 if need is None
-                else "screen window with all but the neglected power below."
+                else f"The grid carries {margin:.3g}× the band that holds all but the neglected "
+                "power (see below)."
             ),
         )
     )
