@@ -38,7 +38,16 @@ __all__ = [
 
 @dataclass
 class Result:
-    """A computed screen: coordinates, field, irradiance, and how they were obtained."""
+    """A computed screen: coordinates, field, irradiance, and how they were obtained.
+
+    ``x`` and ``y`` are the screen pixel centres; ``field[j, i]`` and
+    ``intensity[j, i]`` are the values at the point (``x[i]``, ``y[j]``), point
+    samples, not pixel averages (a camera integrates over its pixels instead).
+    ``intensity`` is |U|², the irradiance of the local wave in W/m², not projected
+    on the screen's normal at oblique angles. ``power_in`` is ∫|U|² dA over the
+    aperture plane behind the aperture (None on a clear background); for light at
+    an angle θ to the axis the power crossing that plane is ∫|U|² cos θ dA.
+    """
 
     x: np.ndarray
     y: np.ndarray
@@ -266,11 +275,13 @@ KERNEL_CACHE = _KernelCache()
 
 def _kernel(p: Plan, lam: float, z: float) -> np.ndarray:
     shape = tuple(p.padded)
-    key = (p.variant, shape, p.dx, p.dy, lam, z, p.dtype)
+    key = (p.variant, shape, p.dx, p.dy, lam, z, p.dtype, p.band)
     if p.method == "angular_spectrum":
         return KERNEL_CACHE.get(
             key,
-            lambda: propagators.angular_spectrum_kernel(shape, p.dx, p.dy, lam, z, dtype=p.dtype),
+            lambda: propagators.angular_spectrum_kernel(
+                shape, p.dx, p.dy, lam, z, band=p.band, dtype=p.dtype
+            ),
         )
     return KERNEL_CACHE.get(
         key, lambda: propagators.fresnel_transfer_kernel(shape, p.dx, p.dy, lam, z, dtype=p.dtype)

@@ -235,6 +235,7 @@ def angular_spectrum_kernel(
     *,
     limit: bool = True,
     rolloff: float = 0.2,
+    band: tuple[float, float] | None = None,
     dtype=np.complex64,
 ) -> np.ndarray:
     """Band-limited angular-spectrum transfer function in FFT order, shape (ny, nx).
@@ -243,6 +244,11 @@ def angular_spectrum_kernel(
     exp(−2π z √(fx² + fy² − 1/λ²)) for evanescent ones (Goodman §3.10.2), set
     to zero beyond the band limit of Matsushima & Shimobaba (2009), which
     removes the aliasing of the sampled kernel at long distances.
+
+    ``band`` (fx, fy), cycles/m, rolls the kernel off from |f| = band to 1.5·band
+    with a raised cosine along each axis (an infinite entry leaves that axis
+    alone): a grid sized to carry that band then drops the folded-back part of
+    the frequencies beyond its Nyquist limit instead of propagating it.
     """
     ny, nx = shape
     dtype = np.dtype(dtype)
@@ -289,6 +295,11 @@ def angular_spectrum_kernel(
         uy = band_limit(ny, dy, wavelength, z)
         _apply_window(h, _band_window(fy, uy, wavelength, rolloff), axis=0)
         _apply_window(h, _band_window(fx, ux, wavelength, rolloff), axis=1)
+    if band is not None:
+        for f, b, axis in ((fy, band[1], 0), (fx, band[0], 1)):
+            if math.isfinite(b):
+                s = np.clip((np.abs(f) - b) / (0.5 * b), 0.0, 1.0)
+                _apply_window(h, 0.5 * (1.0 + np.cos(np.pi * s)), axis=axis)
     return h
 
 
