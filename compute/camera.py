@@ -14,7 +14,8 @@ N = η t ∫∫ I dA / (h c / λ) (summed over the wavelengths of a broad-band s
 drawn from a Poisson distribution when shot noise is on; a pixel holds at most the
 full well N_fw (it saturates), read noise adds a Gaussian of σ_read electrons, and
 the analogue-to-digital converter gives DN = round(N (2^b − 1) / N_fw), clipped to
-[0, 2^b − 1].
+[0, 2^b − 1]; round is to the nearest integer with ties to even (``numpy.rint``,
+IEEE 754 roundTiesToEven): 2.5 → 2, 3.5 → 4.
 
 References
 ----------

@@ -38,7 +38,16 @@ __all__ = [
 
 @dataclass
 class Result:
-    """A computed screen: coordinates, field, irradiance, and how they were obtained."""
+    """A computed screen: coordinates, field, irradiance, and how they were obtained.
+
+    ``x`` and ``y`` are the screen pixel centres; ``field[j, i]`` and
+    ``intensity[j, i]`` are the values at the point (``x[i]``, ``y[j]``), point
+    samples, not pixel averages (a camera integrates over its pixels instead).
+    ``intensity`` is |U|², the irradiance of the local wave in W/m², not projected
+    on the screen's normal at oblique angles. ``power_in`` is ∫|U|² dA over the
+    aperture plane behind the aperture (None on a clear background); for light at
+    an angle θ to the axis the power crossing that plane is ∫|U|² cos θ dA.
+    """
 
     x: np.ndarray
     y: np.ndarray
@@ -62,6 +71,11 @@ class Result:
         return self.plan.validity
 
     @property
+    def verdict(self) -> str:
+        """``'ok'``, ``'marginal'`` or ``'invalid'``: the worst item of the report."""
+        return self.plan.verdict
+
+    @property
     def nbytes(self) -> int:
         extra = sum(getattr(v, "nbytes", 0) for v in self.extras.values())
         return int(
@@ -75,6 +89,7 @@ class Result:
             "method": p.method,
             "variant": p.variant,
             "fresnel_number": float(p.fresnel_number),
+            "verdict": p.verdict,
             "grid": [int(p.ny), int(p.nx)],
             "padded": [int(v) for v in p.padded],
             "pitch": [float(p.dy), float(p.dx)],
@@ -260,11 +275,13 @@ KERNEL_CACHE = _KernelCache()
 
 def _kernel(p: Plan, lam: float, z: float) -> np.ndarray:
     shape = tuple(p.padded)
-    key = (p.variant, shape, p.dx, p.dy, lam, z, p.dtype)
+    key = (p.variant, shape, p.dx, p.dy, lam, z, p.dtype, p.band)
     if p.method == "angular_spectrum":
         return KERNEL_CACHE.get(
             key,
-            lambda: propagators.angular_spectrum_kernel(shape, p.dx, p.dy, lam, z, dtype=p.dtype),
+            lambda: propagators.angular_spectrum_kernel(
+                shape, p.dx, p.dy, lam, z, band=p.band, dtype=p.dtype
+            ),
         )
     return KERNEL_CACHE.get(
         key, lambda: propagators.fresnel_transfer_kernel(shape, p.dx, p.dy, lam, z, dtype=p.dtype)
@@ -319,6 +336,9 @@ def _propagate(setup: Setup, p: Plan, xs: np.ndarray, ys: np.ndarray, samples=No
     x, y = _transform_axes(p)
     u, power_in = _aperture_field(setup, p, x, y, samples)
     pitch = (p.dx, p.dy)
+    if p.variant == "far_field_nonparaxial":
+        field = propagators.rayleigh_sommerfeld_far_field(u, x, y, lam, z, xs, ys, pitch=pitch)
+        return field, power_in
     if p.method == "rayleigh_sommerfeld":
         if f is not None:
             ly, lx = propagators.lens_phase(x, y, lam, f)

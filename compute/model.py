@@ -99,13 +99,14 @@ class Source(param.Parameterized):
     irradiance = param.Number(
         100.0,
         bounds=(0.0, 1e15),
-        doc="Incident irradiance of the plane wave, W/m².",
+        doc="Incident irradiance of the plane wave, W/m², on a plane normal to it (|U|²).",
         metadata={"unit": "W/m²"},
     )
     power = param.Number(
         1e-3,
         bounds=(0.0, 1e9),
-        doc="Total power of the Gaussian beam or of the point source, W.",
+        doc="Total power of the Gaussian beam, or of the point source, which radiates it "
+        "isotropically: P/(4πρ²) at distance ρ, W.",
         metadata={"unit": "W"},
     )
     waist = _length(1e-3, "1/e² intensity radius of the Gaussian beam at its waist, m.", upper=1.0)
@@ -117,8 +118,19 @@ class Source(param.Parameterized):
         metadata={"unit": "m"},
     )
     distance = _length(0.1, "Distance of the point source before the aperture plane, m.", upper=1e4)
-    tilt_x = _angle(0.0, "Angle of incidence about the y axis, rad.", limit=1.0)
-    tilt_y = _angle(0.0, "Angle of incidence about the x axis, rad.", limit=1.0)
+    tilt_x = _angle(
+        0.0,
+        "Angle of incidence in the x–z plane (about the y axis), rad: the wave's direction "
+        "cosine along x is sin(tilt_x); a positive tilt sends the light, and the pattern, "
+        "towards +x. For a point source, the angle of its ray to the aperture's origin.",
+        limit=1.0,
+    )
+    tilt_y = _angle(
+        0.0,
+        "Angle of incidence in the y–z plane (about the x axis), rad: the direction cosine "
+        "along y is sin(tilt_y); a positive tilt moves the pattern towards +y.",
+        limit=1.0,
+    )
     spectrum = param.Selector(
         default="none",
         objects=["none", "gaussian", "flat"],
@@ -370,7 +382,8 @@ class Screen(param.Parameterized):
     samples = param.Integer(
         400,
         bounds=(2, 4096),
-        doc="Pixels across the width; the height follows the aspect ratio.",
+        doc="Pixels across the width; the height follows the aspect ratio. Each pixel's "
+        "value is the irradiance at its centre (a point sample), not a pixel average.",
         metadata={"unit": ""},
     )
     lens_focal_length = param.Number(

@@ -1,7 +1,21 @@
 """The incident field on the aperture plane, and its free propagation in closed form.
 
 Conventions: time dependence exp(−iωt), so a wave travelling towards +z carries
-exp(+ikz); the field U is scaled so that |U|² is the irradiance in W/m².
+exp(+ikz); the field U is scaled so that |U|² is the irradiance in W/m² — that of
+the local wave, on a plane normal to it, not projected on the aperture or screen
+plane (a plane wave of irradiance I0 at angle θ gives |U|² = I0, not I0·cos θ).
+
+* ``tilt_x`` and ``tilt_y`` are angles. A plane or Gaussian wave has the direction
+  cosines α = sin(tilt_x), β = sin(tilt_y), γ = √(1 − α² − β²) and carries
+  exp(ik(αx + βy)) on the aperture plane: a positive tilt sends the light towards
+  +x (+y). The exact methods (angular spectrum, Rayleigh–Sommerfeld) put the
+  undiffracted direction at x = z·α/γ on the screen (z·tan θ with one tilt); the
+  paraxial ones (Fraunhofer, Fresnel, the Gaussian beam's closed form) at
+  x = z·α (z·sin θ).
+* A point source radiates its power isotropically: |U|² = P/(4πρ²) at distance ρ
+  from it. It sits at (−d·tan(tilt_x), −d·tan(tilt_y)) a distance d before the
+  aperture plane, so that its ray to the origin has the two tilts as projected
+  angles.
 
 The closed-form free propagation (:func:`free_field`) is what a *clear*
 aperture background contributes on the screen: by Babinet's principle the

@@ -15,7 +15,10 @@ interleaved round by round so that a change of machine load hits all of them:
 Then a cached repeat of a whole setup, the end-to-end render of the default
 preset, a 16-wavelength broad-band render of it against 16 monochromatic renders
 at the same wavelengths, a camera-sized window from a large aperture grid through the matrix
-Fourier transform and through a zero-padded FFT at the same pitch, and the peak
+Fourier transform and through a zero-padded FFT at the same pitch, the
+wide-angle far field of a 10-wavelength disc (the non-uniform FFT of the
+Rayleigh–Sommerfeld far field against the direct Rayleigh–Sommerfeld sum at the
+same pixels and against a bare FFT of the same aperture grid), and the peak
 memory of a 4096² single-precision propagation (in a fresh process).
 
 Times are medians over the repeats, in seconds.
@@ -37,7 +40,7 @@ from pathlib import Path
 import numpy as np
 import scipy.fft
 
-from compute import engine, propagators, snapshot
+from compute import engine, model, planning, propagators, snapshot
 from compute import fft as cfft
 
 __all__ = ["GOALS", "ROW_KEYS", "main", "run"]
@@ -360,6 +363,65 @@ def _camera_rows(n: int, window: int, pad: int, repeats: int) -> list[dict]:
     ]
 
 
+# --------------------------------------------------------------------------- wide angles
+
+
+def _wide_angle_rows(pixels: int, repeats: int) -> list[dict]:
+    """The far field of a 10 λ disc at 1000 λ on a pixels² window whose corners see 59°.
+
+    Ours: the non-uniform FFT of the Rayleigh–Sommerfeld far field
+    (:func:`compute.propagators.rayleigh_sommerfeld_far_field`) on the grid `auto`
+    plans; against it the direct Rayleigh–Sommerfeld sum over the same samples at the
+    same pixels, and a bare FFT of the same aperture grid (which gives the pattern
+    only on its own uniform frequency grid, not at the pixels' directions).
+    """
+    lam = WAVELENGTH
+    z = 1000 * lam
+    half = z * np.tan(np.radians(59.0)) / np.sqrt(2.0)
+    setup = model.Setup(
+        source=model.Source(wavelength=lam),
+        aperture=model.Aperture(elements=[model.Circle(diameter=10 * lam)]),
+        screen=model.Screen(distance=z, width=2 * half, height=2 * half, samples=pixels),
+        numerics=model.Numerics(method="auto", precision="double"),
+    )
+    p = planning.plan(setup)
+    xs, ys = planning.screen_axes(setup)
+    x = p.grid_centre[0] - 0.5 * p.nx * p.dx + (np.arange(p.nx) + 0.5) * p.dx
+    y = p.grid_centre[1] - 0.5 * p.ny * p.dy + (np.arange(p.ny) + 0.5) * p.dy
+    xx, yy = np.meshgrid(x, y)
+    u = ((xx**2 + yy**2) <= (5 * lam) ** 2).astype(np.complex128)
+
+    def ours() -> np.ndarray:
+        return propagators.rayleigh_sommerfeld_far_field(u, x, y, lam, z, xs, ys)
+
+    def direct() -> np.ndarray:
+        return propagators.rayleigh_sommerfeld(u, x, y, lam, z, xs[None, :], ys[:, None])
+
+    def bare() -> np.ndarray:
+        return cfft.fft2(u)
+
+    a, b = ours(), direct()
+    diff = float(np.max(np.abs(np.abs(a) ** 2 - np.abs(b) ** 2)) / np.max(np.abs(b) ** 2))
+    med = _interleaved(
+        {"ours": _timed(ours), "direct": _timed(direct), "fft": _timed(bare)}, repeats
+    )
+    return [
+        _row(
+            "wide_angle_far_field",
+            f"{p.method}/{p.variant}",
+            pixels,
+            "double",
+            med["ours"],
+            direct_sum_s=med["direct"],
+            bare_fft_s=med["fft"],
+            aperture_grid=[int(p.ny), int(p.nx)],
+            speedup_vs_direct_sum=med["direct"] / med["ours"],
+            ratio_to_bare_fft=med["ours"] / med["fft"],
+            max_rel_diff_vs_direct=diff,
+        )
+    ]
+
+
 # --------------------------------------------------------------------------- memory
 
 
@@ -461,6 +523,9 @@ def run(quick: bool = False, tiny: bool = False, log=None) -> list[dict]:
     rows += _broadband_rows(15 if not tiny else 3)
     say(f"camera window {camera[1]}² from a {camera[0]}² grid ...")
     rows += _camera_rows(*camera, repeats=3 if not tiny else 2)
+    wide = 32 if tiny else 128
+    say(f"wide-angle far field on {wide}² pixels against the direct sum ...")
+    rows += _wide_angle_rows(wide, 2 if tiny else 3)
     say(f"peak memory at {memory_n}² ...")
     rows.append(_memory_row(memory_n))
     return rows
@@ -526,6 +591,12 @@ def table(rows: list[dict]) -> str:
     for r in rows:
         if r["case"] == "peak_memory":
             ours = f"peak {r['peak_bytes'] / 2**20:.0f} MiB (+{r['working_bytes'] / 2**20:.0f})"
+        elif r["case"] == "wide_angle_far_field":
+            ours = (
+                f"{_ms(r['ours_s'])} vs direct sum {_ms(r['direct_sum_s'])} "
+                f"({r['speedup_vs_direct_sum']:.0f}× faster), bare FFT of the "
+                f"{r['aperture_grid'][0]}² grid {_ms(r['bare_fft_s'])}"
+            )
         elif r["case"] == "broadband_render":
             ours = (
                 f"{_ms(r['ours_s'])} vs {r['wavelengths']} monochromatic "

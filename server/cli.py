@@ -1,8 +1,10 @@
 """The ``fringebench`` command: ``render`` and ``check`` a snapshot, ``serve`` the dashboard.
 
 Exit codes: 0 done; 2 bad input (every stderr line starts with ``error:``, the
-first names the field, nothing is written); 1 an internal failure (one line,
-``error: internal failure: ...``; the traceback only with ``FRINGEBENCH_DEBUG=1``).
+first names the field, nothing is written); 3 the result's verdict is invalid and
+``--strict`` was given (``render`` writes nothing; ``check`` prints its report);
+1 an internal failure (one line, ``error: internal failure: ...``; the traceback
+only with ``FRINGEBENCH_DEBUG=1``).
 """
 
 from __future__ import annotations
@@ -29,6 +31,7 @@ from compute.snapshot import SnapshotError
 __all__ = ["BadInput", "build_parser", "cuts_csv", "main"]
 
 DEFAULT_PORT = 5006
+EXIT_INVALID = 3  # --strict and a result whose validity report says invalid
 CAUTION = (
     "A computed irradiance is no laser-safety assessment: follow the applicable "
     "laser-safety standard and your laser safety officer."
@@ -172,6 +175,9 @@ def _cmd_render(args: argparse.Namespace) -> int:
         seen[key] = option
 
     result = engine.compute(setup)
+    if args.strict and result.plan.verdict == "invalid":
+        _report_invalid(result.plan, "nothing written")
+        return EXIT_INVALID
     meta = _jsonable(result.meta())
     meta.setdefault("snapshot_sha256", snapshot.physics_hash(setup))
     meta.setdefault("app_version", __version__)
@@ -199,8 +205,22 @@ def _cmd_render(args: argparse.Namespace) -> int:
     )
     for option, path, _ in files[1:]:
         print(f"wrote {path} ({option[2:]})")
+    if result.plan.verdict == "invalid":
+        print(f"verdict invalid: {_invalid_items(result.plan)} (meta verdict 'invalid')")
     print(CAUTION)
     return 0
+
+
+def _invalid_items(plan: Any) -> str:
+    return "; ".join(v.label for v in plan.validity if v.verdict == "invalid")
+
+
+def _report_invalid(plan: Any, consequence: str) -> None:
+    """The ``--strict`` refusal: one ``error:`` line naming the invalid report items."""
+    sys.stderr.write(
+        f"error: verdict invalid ({_invalid_items(plan)}); no method is valid within the "
+        f"budget for this setup; {consequence} (--strict)\n"
+    )
 
 
 def _plan_json(plan: Any, sha: str) -> dict[str, Any]:
@@ -214,6 +234,7 @@ def _plan_json(plan: Any, sha: str) -> dict[str, Any]:
             "pitch": [plan.dy, plan.dx],
             "padded": list(plan.padded),
             "memory_bytes": plan.memory_bytes,
+            "verdict": plan.verdict,
             "reasons": list(plan.reasons),
             "validity": [item.to_dict() for item in plan.validity],
         }
@@ -226,13 +247,17 @@ def _cmd_check(args: argparse.Namespace) -> int:
     setup = snapshot.load(args.snapshot)
     plan = engine.check(setup)
     report = _plan_json(plan, snapshot.physics_hash(setup))
+    code = EXIT_INVALID if args.strict and plan.verdict == "invalid" else 0
     if args.json:
         print(json.dumps(report, indent=2, ensure_ascii=False, allow_nan=False))
-        return 0
+        if code:
+            _report_invalid(plan, "refused")
+        return code
     print(f"snapshot        {args.snapshot} (physics sha256 {report['snapshot_sha256'][:12]})")
     print(f"method          {plan.method} ({plan.variant})")
     for reason in plan.reasons:
         print(f"                {reason}")
+    print(f"verdict         {plan.verdict}")
     print(f"Fresnel number  {_fmt(plan.fresnel_number)}")
     print(
         f"grid (x × y)    {plan.nx} × {plan.ny} samples at {_fmt(plan.dx * 1e6)} × "
@@ -248,8 +273,13 @@ def _cmd_check(args: argparse.Namespace) -> int:
         print(f"{item.verdict:<9} {item.label:<{width}}  {value}  ({limit})")
         print(f"{'':<9} {item.sentence}")
     print()
+    if plan.verdict == "invalid":
+        print(f"VERDICT INVALID: {_invalid_items(plan)}; do not rely on this result.")
+        print()
     print(CAUTION)
-    return 0
+    if code:
+        _report_invalid(plan, "refused")
+    return code
 
 
 def _cmd_serve(args: argparse.Namespace) -> int:
@@ -319,7 +349,8 @@ def build_parser() -> argparse.ArgumentParser:
         prog="fringebench",
         description="Scalar diffraction on the optical bench: render or check a snapshot,\n"
         "or serve the dashboard.",
-        epilog=f"exit codes: 0 done, 2 bad input, 1 internal failure\n\n{CAUTION}",
+        epilog="exit codes: 0 done, 2 bad input, 3 invalid verdict refused by --strict, "
+        f"1 internal failure\n\n{CAUTION}",
         formatter_class=fmt,
     )
     parser.add_argument("--version", action="version", version=f"fringebench {__version__}")
@@ -348,6 +379,11 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="CUTS.csv",
         help="horizontal and vertical cuts through the window centre (mm, W/m²)",
     )
+    render.add_argument(
+        "--strict",
+        action="store_true",
+        help="write nothing and exit with code 3 when the result's verdict is invalid",
+    )
     render.set_defaults(func=_cmd_render)
 
     check = sub.add_parser(
@@ -360,6 +396,11 @@ def build_parser() -> argparse.ArgumentParser:
     )
     check.add_argument("snapshot", metavar="SNAPSHOT", help="snapshot file (JSON)")
     check.add_argument("--json", action="store_true", help="print the report as JSON")
+    check.add_argument(
+        "--strict",
+        action="store_true",
+        help="exit with code 3 when the verdict is invalid (the report is still printed)",
+    )
     check.set_defaults(func=_cmd_check)
 
     serve = sub.add_parser(

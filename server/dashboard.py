@@ -773,6 +773,10 @@ class Dashboard(pn.viewable.Viewer):
         self.status = _html("", css_classes=["fb-status"], sizing_mode="stretch_width")
         self.state_pane = _html("", css_classes=["fb-state"], height=0, margin=0)
         self.overlay_note = _html("", css_classes=["fb-overlay-note"], sizing_mode="stretch_width")
+        # Over the map: the verdict when the result's report says invalid (else hidden).
+        self.verdict_banner = _html(
+            "", visible=False, css_classes=["fb-verdict"], sizing_mode="stretch_width"
+        )
         # Follow mode hook: server.sharing puts the share controls in this row.
         self.share_bar = pn.Row(css_classes=["fb-share-bar"], margin=(4, 10))
         # Slots of the extension panels (see server/*_view.py, *_panel.py).
@@ -941,6 +945,8 @@ class Dashboard(pn.viewable.Viewer):
         numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
         self.numbers_pane.object = views.numbers_card(numbers, meta, cut_label=self._closed.label)
         self.validity_pane.object = views.validity_card([v.to_dict() for v in r.validity])
+        self.verdict_banner.object = views.verdict_banner(r.plan)
+        self.verdict_banner.visible = bool(self.verdict_banner.object)
         self._run_result_hooks()
         self._update_state()
 
@@ -1042,6 +1048,7 @@ class Dashboard(pn.viewable.Viewer):
                 {
                     "key": r.key,
                     "method": r.plan.method,
+                    "verdict": r.plan.verdict,
                     "peak": repr(float(z.max())),
                     "sum": repr(float(z.sum(dtype=np.float64))),
                     "shape": f"{z.shape[0]}x{z.shape[1]}",
@@ -1184,6 +1191,7 @@ class Dashboard(pn.viewable.Viewer):
         )
         main = pn.Column(
             toolbar,
+            self.verdict_banner,
             pn.Row(
                 self.map_pane,
                 self.camera_slot,

@@ -408,3 +408,21 @@ def validity_card(items: list[dict]) -> str:
         f"<p>{html.escape(head)}</p>"
         f'<table class="fb-table">{"".join(rows)}</table></div>'
     )
+
+
+def verdict_banner(plan) -> str:
+    """HTML of the banner over the map when the result's verdict is invalid, else "".
+
+    Shown only when :attr:`compute.planning.Plan.verdict` is ``'invalid'``: then no
+    method was valid within the memory and time budget (for ``auto``) or the chosen
+    method does not hold here, and the map is not to be relied on.
+    """
+    if plan is None or getattr(plan, "verdict", "ok") != "invalid":
+        return ""
+    bad = [v.label for v in plan.validity if v.verdict == "invalid"]
+    return (
+        '<div class="fb-verdict-banner" role="alert" data-verdict="invalid">'
+        "<strong>Invalid here:</strong> "
+        f"{html.escape('; '.join(bad))}. The map below is computed but does not hold "
+        "at this setup; see the validity report.</div>"
+    )
