@@ -26,7 +26,6 @@ from concurrent.futures import Future
 from pathlib import Path
 from typing import Any
 
-import holoviews as hv
 import numpy as np
 import pandas as pd
 import panel as pn
@@ -42,6 +41,7 @@ from server import (
     camera_panel,
     controls,
     cutplot,
+    mapplot,
     sharing,
     sweep_panel,
     urlstate,
@@ -181,6 +181,9 @@ class Dashboard(pn.viewable.Viewer):
         self.view_extra: dict[str, Any] = {}
         self.state_extra: dict[str, str] = {}
         self._plots_built = False
+        # The map moves to the screen window with the next result (a load, an element
+        # added or deleted; a changed window always moves it).
+        self._reframe = True
         self._applying_view = False
         self._url_warned = False
         self._build_widgets()
@@ -329,7 +332,7 @@ class Dashboard(pn.viewable.Viewer):
         def change(s: Setup) -> None:
             s.aperture.elements = [*s.aperture.elements, ELEMENT_TYPES[shape]()]
 
-        return self._edit(change, select=len(self.setup.aperture.elements))
+        return self._reframing_edit(change, select=len(self.setup.aperture.elements))
 
     def duplicate_element(self, index: int) -> bool:
         """Insert a copy of element ``index`` right after it."""
@@ -339,7 +342,7 @@ class Dashboard(pn.viewable.Viewer):
             copy_ = clone_element(els[index])
             s.aperture.elements = [*els[: index + 1], copy_, *els[index + 1 :]]
 
-        return self._edit(change, select=index + 1)
+        return self._reframing_edit(change, select=index + 1)
 
     def remove_element(self, index: int) -> bool:
         """Delete element ``index``."""
@@ -351,7 +354,16 @@ class Dashboard(pn.viewable.Viewer):
             del els[index]
             s.aperture.elements = els
 
-        return self._edit(change, select=max(0, index - 1))
+        return self._reframing_edit(change, select=max(0, index - 1))
+
+    def _reframing_edit(self, change: Callable[[Setup], None], *, select: int) -> bool:
+        """An edit after which the map opens on the screen window again (add, delete)."""
+        before = self._reframe
+        self._reframe = True
+        ok = self._edit(change, select=select)
+        if not ok:
+            self._reframe = before
+        return ok
 
     def move_element(self, index: int, step: int) -> bool:
         """Move element ``index`` by ``step`` places in the painting order."""
@@ -372,6 +384,7 @@ class Dashboard(pn.viewable.Viewer):
         if self._read_only():  # follow mode hook
             return
         self.selected = 0
+        self._reframe = True  # the map opens on the new window
         self._commit(clone(setup), view=setup.view)
         self.notify("info", f"Loaded {origin}.")
 
@@ -483,7 +496,7 @@ class Dashboard(pn.viewable.Viewer):
             if event.name == "scale":
                 self._build_plots()
             else:
-                self._send_map()
+                self._map_plot.set_cmap(self.cmap)
             self._update_state()
         if not self._applying_view:
             self._mirror_url()
@@ -661,15 +674,11 @@ class Dashboard(pn.viewable.Viewer):
         self.element_editor = pn.Column(sizing_mode="stretch_width")
 
         # Views.
-        self.map_pane = pn.pane.HoloViews(None, sizing_mode="stretch_width", css_classes=["fb-map"])
+        self.map_pane = pn.pane.Bokeh(None, css_classes=["fb-map"])
         self.cut_x_pane = pn.pane.Bokeh(None, sizing_mode="stretch_width", css_classes=["fb-cut-x"])
         self.cut_y_pane = pn.pane.Bokeh(None, sizing_mode="stretch_width", css_classes=["fb-cut-y"])
-        self.aperture_pane = pn.pane.HoloViews(
-            None, sizing_mode="stretch_width", css_classes=["fb-aperture"]
-        )
-        self.phase_pane = pn.pane.HoloViews(
-            None, sizing_mode="stretch_width", css_classes=["fb-phase"]
-        )
+        self.aperture_pane = pn.pane.Bokeh(None, css_classes=["fb-aperture"])
+        self.phase_pane = pn.pane.Bokeh(None, css_classes=["fb-phase"])
         self.numbers_pane = _html("", sizing_mode="stretch_width", css_classes=["fb-numbers-pane"])
         self.validity_pane = _html(
             "", sizing_mode="stretch_width", css_classes=["fb-validity-pane"]
@@ -781,93 +790,83 @@ class Dashboard(pn.viewable.Viewer):
     # ------------------------------------------------------------------- views
 
     def _build_plots(self) -> None:
-        """(Re)create the plots; needed once, and when the scale changes."""
-        self._map_pipe = hv.streams.Pipe(data=self._map_data)
-        self._cross_spans = views.crosshair_spans()
-        scale = self.scale
-        # True colour is display only; a DynamicMap holds one kind of element, so the
-        # switch rebuilds the plots.
-        colour = getattr(self, "true_colour", None)
-        colour_on = colour is not None and colour.shown
-        if colour is not None:
-            colour.built_with = colour_on
+        """Create the plots once; the cuts again when the scale changes (their axis type).
 
-        def image(data):
-            if colour_on:
-                return colour.view(data)
-            x, y, z = data
-            return views.map_view(x, y, z, scale=scale, cmap=self.cmap)
-
-        spans = self._cross_spans
-
-        def add_crosshair(plot, _element) -> None:
-            # The crosshair lives on the map's own figure; clicks only move it.
-            fig = plot.state
-            if spans[0] not in fig.center:
-                for span in spans:
-                    fig.add_layout(span)
-            self._place_crosshair()
-
-        img = hv.DynamicMap(image, streams=[self._map_pipe]).opts(hooks=[add_crosshair])
-        self._tap = hv.streams.Tap(source=img, x=None, y=None)
-        self._tap.add_subscriber(self._tapped)
-        self.map_pane.object = img
-
+        The map and the aperture previews are plain Bokeh figures updated in place
+        (server.mapplot), each with ranges of its own.
+        """
+        if getattr(self, "_map_plot", None) is None:
+            self._map_plot = mapplot.MapPlot(scale=self.scale, cmap=self.cmap, on_tap=self._tapped)
+            self.map_pane.object = self._map_plot.figure
+        else:
+            self._map_plot.set_scale(self.scale)
         # The cuts are plain Bokeh figures updated in place (server.cutplot).
-        self._cut_plots = {a: cutplot.CutPlot(a, scale=scale) for a in ("x", "y")}
+        self._cut_plots = {a: cutplot.CutPlot(a, scale=self.scale) for a in ("x", "y")}
         self.cut_x_pane.object = self._cut_plots["x"].figure
         self.cut_y_pane.object = self._cut_plots["y"].figure
         self._plots_built = True
+        self._send_map()
         self._send_cuts()
 
-    def _tapped(self, x: float | None = None, y: float | None = None) -> None:
-        if x is None or y is None:
+    def _tapped(self, x: float, y: float) -> None:
+        """A click on the map at (x, y) mm: Bokeh calls this under the document lock."""
+        if x is None or y is None or not (math.isfinite(x) and math.isfinite(y)):
             return
-        move = functools.partial(self.set_cut, x * 1e-3, y * 1e-3)
-        if self._doc is not None and self._doc.session_context is not None:
-            # HoloViews calls this outside the document lock; the cut plots are plain
-            # Bokeh models, changed only under it (the next tick of this session).
-            self._doc.add_next_tick_callback(move)
-        else:
-            move()
+        self.set_cut(x * 1e-3, y * 1e-3)
 
     def _show_result(self) -> None:
         r = self.result
         self._map_data = (r.x, r.y, np.asarray(r.intensity, dtype=np.float32))
-        if not self._plots_built:
-            self._build_plots()
-        self._send_map()
-        self._send_cuts()
-        if self._preview is not None:
-            self._send_aperture(self._preview)
-            self._preview = None
-        meta = dict(r.meta())
-        meta["cached"] = bool(getattr(r, "cached", False))
-        meta.setdefault("reasons", list(getattr(r.plan, "reasons", [])))
-        meta["elapsed_s"] = float(getattr(r, "elapsed_s", meta.get("elapsed_s", 0.0)))
-        numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
-        self.numbers_pane.object = views.numbers_card(numbers, meta, cut_label=self._closed.label)
-        self.validity_pane.object = views.validity_card([v.to_dict() for v in r.validity])
-        self._run_result_hooks()
-        self._update_state()
+        with pn.io.hold(self._doc if self._doc is not None else None):
+            if not self._plots_built:
+                self._build_plots()
+            self._send_map(fresh=True)
+            self._send_cuts()
+            if self._preview is not None:
+                self._send_aperture(self._preview)
+                self._preview = None
+            meta = dict(r.meta())
+            meta["cached"] = bool(getattr(r, "cached", False))
+            meta.setdefault("reasons", list(getattr(r.plan, "reasons", [])))
+            meta["elapsed_s"] = float(getattr(r, "elapsed_s", meta.get("elapsed_s", 0.0)))
+            numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
+            card = views.numbers_card(numbers, meta, cut_label=self._closed.label)
+            if card != self.numbers_pane.object:
+                self.numbers_pane.object = card
+            validity = views.validity_card([v.to_dict() for v in r.validity])
+            if validity != self.validity_pane.object:
+                self.validity_pane.object = validity
+            self._run_result_hooks()
+            self._update_state()
 
     def _send_aperture(self, preview: tuple) -> None:
         """Show a new aperture preview, updating the plots in place once they exist."""
         self._preview_shown = preview  # follow mode hook: what a new follower is sent
-        if getattr(self, "_aperture_pipe", None) is None:
-            self._aperture_pipe = hv.streams.Pipe(data=preview)
-            self.aperture_pane.object = hv.DynamicMap(
-                lambda data: views.aperture_view(*data)[0], streams=[self._aperture_pipe]
-            )
-            self.phase_pane.object = hv.DynamicMap(
-                lambda data: views.aperture_view(*data)[1], streams=[self._aperture_pipe]
-            )
-        else:
-            self._aperture_pipe.send(preview)
+        if getattr(self, "_aperture_views", None) is None:
+            self._aperture_views = mapplot.ApertureViews()
+            self.aperture_pane.object = self._aperture_views.amplitude
+            self.phase_pane.object = self._aperture_views.phase
+        self._aperture_views.show(*preview)
 
-    def _send_map(self) -> None:
-        if self._map_data is not None:
-            self._map_pipe.send(self._map_data)
+    def _send_map(self, *, fresh: bool = False) -> None:
+        """Put the map at hand on the map figure (in true colour when that is shown).
+
+        ``fresh``: a new result; the view moves to the window when a load or an element
+        added or deleted asked for it (a changed window always moves it).
+        """
+        if self._map_data is None or getattr(self, "_map_plot", None) is None:
+            return
+        x, y, z = self._map_data
+        colour = getattr(self, "true_colour", None)
+        rgb = None
+        if colour is not None:
+            shown = colour.shown
+            colour.built_with = shown
+            rgb = colour.rgb() if shown else None
+        reframe = fresh and self._reframe
+        if fresh:
+            self._reframe = False
+        self._map_plot.show(x, y, z, rgb=rgb, reframe=reframe)
 
     def _cut_data(self, axis: str) -> dict | None:
         r = self.result
@@ -913,9 +912,8 @@ class Dashboard(pn.viewable.Viewer):
         self.overlay_note.object = f'<span class="fb-note">{html.escape(note)}</span>'
 
     def _place_crosshair(self) -> None:
-        vertical, horizontal = self._cross_spans
-        vertical.location = self.cut_x * 1e3  # the map's axes are in mm
-        horizontal.location = self.cut_y * 1e3
+        if getattr(self, "_map_plot", None) is not None:
+            self._map_plot.place_crosshair(self.cut_x * 1e3, self.cut_y * 1e3)  # mm
 
     def _set_busy_view(self, busy: bool) -> None:
         self.spinner.value = busy
