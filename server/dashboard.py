@@ -876,12 +876,20 @@ class Dashboard(pn.viewable.Viewer):
         i = views.nearest(r.x, self.cut_x)
         fn = self._closed.fn
         ref = None
+
+        # The title gives the position asked for (the window centre by default), to a
+        # pixel's digits; the data are the row or column nearest it.
+        def step(a: np.ndarray) -> float | None:
+            return float(a[1] - a[0]) if a.size > 1 else None
+
         if axis == "x":
-            coords, values, at, marker = r.x, r.intensity[j, :], float(r.y[j]), float(r.x[i])
+            coords, values, marker = r.x, r.intensity[j, :], float(r.x[i])
+            at, pixel = min(max(self.cut_y, float(r.y[0])), float(r.y[-1])), step(r.y)
             if fn is not None:
                 ref = self._reference(fn, r.x, np.full_like(r.x, r.y[j]))
         else:
-            coords, values, at, marker = r.y, r.intensity[:, i], float(r.x[i]), float(r.y[j])
+            coords, values, marker = r.y, r.intensity[:, i], float(r.y[j])
+            at, pixel = min(max(self.cut_x, float(r.x[0])), float(r.x[-1])), step(r.x)
             if fn is not None:
                 ref = self._reference(fn, np.full_like(r.y, r.x[i]), r.y)
         return {
@@ -889,6 +897,7 @@ class Dashboard(pn.viewable.Viewer):
             "values": values,
             "axis": axis,
             "at": at,
+            "step": pixel,
             "marker": marker,
             "reference": ref,
             "reference_label": self._closed.label.removeprefix("closed form: "),

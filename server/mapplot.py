@@ -35,21 +35,26 @@ from bokeh.palettes import Cividis256, Greys256, Inferno256, Magma256, Viridis25
 from bokeh.plotting import figure
 
 __all__ = [
+    "AMPLITUDE_NAME",
     "MAP_FRAME",
+    "MAP_NAME",
+    "PHASE_NAME",
     "PREVIEW_FRAME",
     "ApertureViews",
     "MapPlot",
     "axis_decimals",
     "frame_size",
     "image_extent",
-    "irradiance_text",
-    "length_text",
 ]
 
 _MM = 1e3
 #: The largest plotting frame of the map (width, height) in screen pixels; the frame
 #: is fitted inside it at the window's aspect.
 MAP_FRAME = (440, 400)
+#: Names of the figures in the Bokeh document (what the browser tests look up).
+MAP_NAME = "fb-map-figure"
+AMPLITUDE_NAME = "fb-aperture-figure"
+PHASE_NAME = "fb-phase-figure"
 #: Smallest side of a frame, so that a very elongated window still shows a strip.
 MIN_SIDE = 60
 #: The frame of each aperture preview (width, height).
@@ -97,36 +102,6 @@ def axis_decimals(step_mm: float) -> int:
     return int(min(9, max(0, math.ceil(-math.log10(step_mm)) + 1)))
 
 
-def length_text(value_mm: float, step_mm: float) -> str:
-    """A position in mm rounded to the pixel size: ``0`` and not ``0.02083``.
-
-    The value is rounded to the decimal place of ``step_mm`` (one pixel), so a cut
-    half a pixel off the centre of an even window reads as the centre it was asked for.
-    """
-    if not math.isfinite(value_mm):
-        return "—"
-    d = 3
-    if step_mm > 0 and math.isfinite(step_mm):
-        d = min(9, max(0, math.ceil(-math.log10(step_mm))))
-    text = f"{value_mm:.{d}f}"
-    if "." in text:
-        text = text.rstrip("0").rstrip(".")
-    return "0" if text in ("-0", "") else text
-
-
-def irradiance_text(value: float) -> str:
-    """An irradiance with four significant digits and no ``e+`` (as the hover shows it)."""
-    if value is None or not math.isfinite(value):
-        return "—"
-    if value == 0:
-        return "0"
-    e = math.floor(math.log10(abs(value)))
-    if -3 <= e <= 5:
-        return f"{value:.{max(0, 3 - e)}f}"
-    sup = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
-    return f"{value / 10**e:.3f}×10{str(e).translate(sup)}"
-
-
 def image_extent(axis: np.ndarray) -> tuple[float, float]:
     """Edges (first, last) of the pixels whose centres are ``axis`` (equal steps)."""
     a = np.asarray(axis, dtype=np.float64)
@@ -161,9 +136,10 @@ def _hover_formatters(decimals: int) -> tuple[CustomJSHover, CustomJSHover]:
     )
 
 
-def _image_figure(title: str, frame: tuple[int, int], **kw: Any):
+def _image_figure(title: str, frame: tuple[int, int], name: str, **kw: Any):
     fig = figure(
         title=title,
+        name=name,
         x_range=Range1d(-1.0, 1.0, reset_start=-1.0, reset_end=1.0),
         y_range=Range1d(-1.0, 1.0, reset_start=-1.0, reset_end=1.0),
         frame_width=frame[0],
@@ -173,6 +149,8 @@ def _image_figure(title: str, frame: tuple[int, int], **kw: Any):
         tools=TOOLS,
         toolbar_location="above",
         sizing_mode="fixed",
+        width=None,  # the frame sets the size (a width or height would pad the pane)
+        height=None,
         **kw,
     )
     fig.toolbar.logo = None
@@ -221,7 +199,7 @@ class MapPlot:
         self.linear_mapper = LinearColorMapper(palette=palette, low=0.0, high=1.0)
         self.log_mapper = LogColorMapper(palette=palette, low=1e-6, high=1.0)
         mapper = self.log_mapper if scale == "log" else self.linear_mapper
-        fig = _image_figure("Screen irradiance (W/m²)", MAP_FRAME)
+        fig = _image_figure("Screen irradiance (W/m²)", MAP_FRAME, MAP_NAME)
         self.image = fig.image(
             image="image", x="x", y="y", dw="dw", dh="dh", source=self.source, color_mapper=mapper
         )
@@ -353,8 +331,8 @@ class ApertureViews:
         blank = {"image": [], "x": [], "y": [], "dw": [], "dh": []}
         self.amplitude_source = ColumnDataSource(data=dict(blank))
         self.phase_source = ColumnDataSource(data=dict(blank))
-        self.amplitude = _image_figure("Aperture amplitude", PREVIEW_FRAME)
-        self.phase = _image_figure("Aperture phase (rad)", PREVIEW_FRAME)
+        self.amplitude = _image_figure("Aperture amplitude", PREVIEW_FRAME, AMPLITUDE_NAME)
+        self.phase = _image_figure("Aperture phase (rad)", PREVIEW_FRAME, PHASE_NAME)
         self._length_fmts = []
         for fig, src, mapper, name in (
             (
