@@ -18,6 +18,8 @@ from bokeh.core.properties import value
 from bokeh.models import ColumnDataSource, HoverTool, Range1d, Span
 from bokeh.plotting import figure
 
+from server import mapplot
+
 __all__ = ["LOG_DECADES", "CutPlot", "cut_columns", "position_text"]
 
 #: Dynamic range of the logarithmic scale (decades below the peak), as on the map.
@@ -163,13 +165,16 @@ class CutPlot:
         fig.legend.location = "top_right"
         fig.legend.visible = False
         fig.legend.background_fill_alpha = 0.6
+        # Positions to a tenth of a sample, irradiance to four digits, no "e+".
+        self._length_fmt, value_fmt = mapplot.hover_formatters(3)
         fig.add_tools(
             HoverTool(
                 renderers=[line],
                 tooltips=[
-                    (axis, f"@{axis}{{0.000}} mm"),
-                    ("irradiance", "@irradiance{0.000e+0} W/m²"),
+                    (axis, f"@{axis}{{custom}} mm"),
+                    ("irradiance", "@irradiance{custom} W/m²"),
                 ],
+                formatters={f"@{axis}": self._length_fmt, "@irradiance": value_fmt},
                 mode="vline",
             )
         )
@@ -195,4 +200,9 @@ class CutPlot:
         if self._y_range is not None and cols["y_range"] is not None:
             self._y_range.start, self._y_range.end = cols["y_range"]
         self._marker.location = cols["marker"]
+        coords = cols["coords"]
+        if coords.size > 1:
+            decimals = mapplot.axis_decimals(float(coords[1] - coords[0]))
+            if self._length_fmt.args.get("decimals") != decimals:
+                self._length_fmt.args = {"decimals": decimals}
         self.figure.title.text = cols["title"]

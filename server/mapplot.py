@@ -44,6 +44,7 @@ __all__ = [
     "MapPlot",
     "axis_decimals",
     "frame_size",
+    "hover_formatters",
     "image_extent",
 ]
 
@@ -72,10 +73,10 @@ TOOLS = "pan,wheel_zoom,box_zoom,reset,save"
 CROSSHAIR_COLOUR = "#38d9c6"
 
 # Hover formatters run in the browser. A length is shown in mm with the decimals the
-# pixel size calls for (args.decimals, set by the server per result); an irradiance
+# pixel size calls for (``decimals``, set by the server per result); an irradiance
 # with four significant digits, and a power of ten written out (no "e+").
 _LENGTH_JS = """
-const d = Math.max(0, Math.min(9, args.decimals));
+const d = Math.max(0, Math.min(9, decimals));
 const v = Math.abs(value) < 0.5 * Math.pow(10, -d) ? 0 : value;
 return v.toFixed(d);
 """
@@ -129,7 +130,11 @@ def frame_size(width: float, height: float, box: tuple[int, int] = MAP_FRAME) ->
     return max(MIN_SIDE, round(bh * aspect)), bh
 
 
-def _hover_formatters(decimals: int) -> tuple[CustomJSHover, CustomJSHover]:
+def hover_formatters(decimals: int) -> tuple[CustomJSHover, CustomJSHover]:
+    """Hover formatters (length in mm to ``decimals`` places, irradiance to 4 digits).
+
+    The length formatter's decimals change with ``formatter.args = {"decimals": d}``.
+    """
     return (
         CustomJSHover(code=_LENGTH_JS, args={"decimals": decimals}),
         CustomJSHover(code=_VALUE_JS),
@@ -208,7 +213,7 @@ class MapPlot:
         )
         self.colour_bar = ColorBar(color_mapper=mapper, width=12, padding=4, label_standoff=6)
         fig.add_layout(self.colour_bar, "right")
-        length, value = _hover_formatters(self._decimals)
+        length, value = hover_formatters(self._decimals)
         self._length_fmt = length
         self.hover = HoverTool(
             renderers=[self.image],
@@ -354,7 +359,7 @@ class ApertureViews:
                 image="image", x="x", y="y", dw="dw", dh="dh", source=src, color_mapper=mapper
             )
             fig.add_layout(ColorBar(color_mapper=mapper, width=10, padding=4), "right")
-            length, _ = _hover_formatters(3)
+            length, _ = hover_formatters(3)
             self._length_fmts.append(length)
             unit = " rad" if name == "phase" else ""
             fig.add_tools(
