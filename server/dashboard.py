@@ -392,10 +392,14 @@ class Dashboard(pn.viewable.Viewer):
         self.setup = candidate
         if view is not None:
             self._apply_view(view)
+        if self._threaded:
+            # The worker computes while the controls, the panels and the address follow.
+            self._request_compute()
         self._refresh_controls()
         self._run_setup_hooks()
         self._mirror_url()
-        self._request_compute()
+        if not self._threaded:
+            self._request_compute()
 
     def _run_setup_hooks(self) -> None:
         for hook in self.setup_hooks:
@@ -815,9 +819,16 @@ class Dashboard(pn.viewable.Viewer):
         self.set_cut(x * 1e-3, y * 1e-3)
 
     def _show_result(self) -> None:
+        """Put the result on the page: the pictures first, the readings a tick later.
+
+        The map, the cuts, the aperture previews, the panels' hooks and the state go
+        to the browser in one message; the readings (which take a few tens of ms to
+        read off the map) follow in the next tick, so the map is not kept waiting.
+        The state's ``data-numbers`` is the key of the result whose readings show.
+        """
         r = self.result
         self._map_data = (r.x, r.y, np.asarray(r.intensity, dtype=np.float32))
-        with pn.io.hold(self._doc if self._doc is not None else None):
+        with pn.io.hold(self._doc):
             if not self._plots_built:
                 self._build_plots()
             self._send_map(fresh=True)
@@ -825,18 +836,30 @@ class Dashboard(pn.viewable.Viewer):
             if self._preview is not None:
                 self._send_aperture(self._preview)
                 self._preview = None
-            meta = dict(r.meta())
-            meta["cached"] = bool(getattr(r, "cached", False))
-            meta.setdefault("reasons", list(getattr(r.plan, "reasons", [])))
-            meta["elapsed_s"] = float(getattr(r, "elapsed_s", meta.get("elapsed_s", 0.0)))
-            numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
+            self._run_result_hooks()
+            self._update_state()
+        if self._doc is not None and self._doc.session_context is not None:
+            self._doc.add_next_tick_callback(functools.partial(self._show_numbers, r))
+        else:
+            self._show_numbers(r)
+
+    def _show_numbers(self, r: Any) -> None:
+        """The readings and the validity card of result ``r`` (unless a newer one shows)."""
+        if r is not self.result:
+            return  # the newer result shows its own readings
+        meta = dict(r.meta())
+        meta["cached"] = bool(getattr(r, "cached", False))
+        meta.setdefault("reasons", list(getattr(r.plan, "reasons", [])))
+        meta["elapsed_s"] = float(getattr(r, "elapsed_s", meta.get("elapsed_s", 0.0)))
+        numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
+        with pn.io.hold(self._doc):
             card = views.numbers_card(numbers, meta, cut_label=self._closed.label)
             if card != self.numbers_pane.object:
                 self.numbers_pane.object = card
             validity = views.validity_card([v.to_dict() for v in r.validity])
             if validity != self.validity_pane.object:
                 self.validity_pane.object = validity
-            self._run_result_hooks()
+            self._numbers_key = r.key
             self._update_state()
 
     def _send_aperture(self, preview: tuple) -> None:
@@ -965,6 +988,7 @@ class Dashboard(pn.viewable.Viewer):
                     "cut-col-sum": repr(float(r.intensity[:, i].sum())),
                     "overlay": self._closed.label,
                     "elapsed-ms": f"{r.elapsed_s * 1e3:.1f}",
+                    "numbers": getattr(self, "_numbers_key", ""),
                     "cached": int(bool(getattr(r, "cached", False))),
                 }
             )
