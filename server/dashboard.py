@@ -827,7 +827,7 @@ class Dashboard(pn.viewable.Viewer):
         The state's ``data-numbers`` is the key of the result whose readings show.
         """
         r = self.result
-        self._map_data = (r.x, r.y, np.asarray(r.intensity, dtype=np.float32))
+        self._map_data = (r.x, r.y, r.intensity)  # the map figure sends it as float32
         with pn.io.hold(self._doc):
             if not self._plots_built:
                 self._build_plots()
