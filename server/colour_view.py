@@ -178,7 +178,7 @@ class TrueColour:
     def _redraw(self, *, update_state: bool = True) -> None:
         d = self.dash
         if d._plots_built and self.shown != self.built_with:
-            d._build_plots()
+            d._send_map()  # the map figure swaps its image in place
         self._publish()
         if update_state:
             d._update_state()

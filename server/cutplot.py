@@ -10,6 +10,7 @@ redraws the whole figure. Axes are in mm, irradiance in W/m².
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numpy as np
@@ -17,7 +18,9 @@ from bokeh.core.properties import value
 from bokeh.models import ColumnDataSource, HoverTool, Range1d, Span
 from bokeh.plotting import figure
 
-__all__ = ["LOG_DECADES", "CutPlot", "cut_columns"]
+from server import mapplot
+
+__all__ = ["LOG_DECADES", "CutPlot", "cut_columns", "position_text"]
 
 #: Dynamic range of the logarithmic scale (decades below the peak), as on the map.
 LOG_DECADES = 6
@@ -27,6 +30,25 @@ REFERENCE_COLOUR = "#38d9c6"
 MARKER_COLOUR = "#8892a6"
 
 
+def position_text(value_mm: float, step_mm: float | None) -> str:
+    """A position in mm rounded to the decimal place of one pixel (``step_mm``).
+
+    ``0`` and not ``0.02083``: the cut runs along the row (or column) nearest the
+    position asked for, within half a pixel, so no more digits than a pixel's are
+    meaningful. Without a step, four significant digits.
+    """
+    if not math.isfinite(value_mm):
+        return "—"
+    if step_mm is None or not (step_mm > 0 and math.isfinite(step_mm)):
+        text = f"{value_mm:.4g}"
+    else:
+        d = min(9, max(0, math.ceil(-math.log10(step_mm))))
+        text = f"{value_mm:.{d}f}"
+        if "." in text:
+            text = text.rstrip("0").rstrip(".")
+    return "0" if text in ("-0", "", "0") else text
+
+
 def cut_columns(data: dict[str, Any] | None, *, scale: str) -> dict[str, Any]:
     """What a cut plot shows for one cut, in plot units.
 
@@ -34,7 +56,9 @@ def cut_columns(data: dict[str, Any] | None, *, scale: str) -> dict[str, Any]:
     ----------
     data
         The dashboard's cut: ``coords`` (m), ``values`` (W/m²), ``axis`` ('x' or 'y'),
-        ``at`` and ``marker`` (m), ``reference`` (W/m² on ``coords``, or None) and
+        ``at`` (m: the position asked for, shown in the title to the pixel's
+        decimal place) and ``marker`` (m), optionally ``step`` (m: the pixel size
+        across the cut), ``reference`` (W/m² on ``coords``, or None) and
         ``reference_label``; None for no result yet.
     scale
         ``'linear'`` or ``'log'``; on the log scale values are floored
@@ -73,6 +97,9 @@ def cut_columns(data: dict[str, Any] | None, *, scale: str) -> dict[str, Any]:
             ref = np.maximum(ref, floor)
         y_range = (floor, max(peak, floor * 10) * 1.5)
     other = "y" if data["axis"] == "x" else "x"
+    at_mm = float(data["at"]) * _MM
+    step = data.get("step")
+    step_mm = None if step is None else float(step) * _MM
     lo, hi = (float(coords[0]), float(coords[-1])) if coords.size > 1 else (-1.0, 1.0)
     return {
         "coords": coords,
@@ -81,7 +108,7 @@ def cut_columns(data: dict[str, Any] | None, *, scale: str) -> dict[str, Any]:
         "x_range": (lo, hi),
         "y_range": y_range,
         "marker": float(data["marker"]) * _MM,
-        "title": f"Cut along {data['axis']} at {other} = {float(data['at']) * _MM:.4g} mm",
+        "title": f"Cut along {data['axis']} at {other} = {position_text(at_mm, step_mm)} mm",
         "reference_label": str(data.get("reference_label") or "closed form"),
     }
 
@@ -138,13 +165,16 @@ class CutPlot:
         fig.legend.location = "top_right"
         fig.legend.visible = False
         fig.legend.background_fill_alpha = 0.6
+        # Positions to a tenth of a sample, irradiance to four digits, no "e+".
+        self._length_fmt, value_fmt = mapplot.hover_formatters(3)
         fig.add_tools(
             HoverTool(
                 renderers=[line],
                 tooltips=[
-                    (axis, f"@{axis}{{0.000}} mm"),
-                    ("irradiance", "@irradiance{0.000e+0} W/m²"),
+                    (axis, f"@{axis}{{custom}} mm"),
+                    ("irradiance", "@irradiance{custom} W/m²"),
                 ],
+                formatters={f"@{axis}": self._length_fmt, "@irradiance": value_fmt},
                 mode="vline",
             )
         )
@@ -170,4 +200,9 @@ class CutPlot:
         if self._y_range is not None and cols["y_range"] is not None:
             self._y_range.start, self._y_range.end = cols["y_range"]
         self._marker.location = cols["marker"]
+        coords = cols["coords"]
+        if coords.size > 1:
+            decimals = mapplot.axis_decimals(float(coords[1] - coords[0]))
+            if self._length_fmt.args.get("decimals") != decimals:
+                self._length_fmt.args = {"decimals": decimals}
         self.figure.title.text = cols["title"]

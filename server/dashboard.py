@@ -27,7 +27,6 @@ from concurrent.futures import Future
 from pathlib import Path
 from typing import Any
 
-import holoviews as hv
 import numpy as np
 import pandas as pd
 import panel as pn
@@ -43,6 +42,7 @@ from server import (
     camera_panel,
     controls,
     cutplot,
+    mapplot,
     sharing,
     sweep_panel,
     urlstate,
@@ -197,6 +197,9 @@ class Dashboard(pn.viewable.Viewer):
         self.view_extra: dict[str, Any] = {}
         self.state_extra: dict[str, str] = {}
         self._plots_built = False
+        # The map moves to the screen window with the next result (a load, an element
+        # added or deleted; a changed window always moves it).
+        self._reframe = True
         self._applying_view = False
         self._url_warned = False
         self._build_widgets()
@@ -345,7 +348,7 @@ class Dashboard(pn.viewable.Viewer):
         def change(s: Setup) -> None:
             s.aperture.elements = [*s.aperture.elements, ELEMENT_TYPES[shape]()]
 
-        return self._edit(change, select=len(self.setup.aperture.elements))
+        return self._reframing_edit(change, select=len(self.setup.aperture.elements))
 
     def duplicate_element(self, index: int) -> bool:
         """Insert a copy of element ``index`` right after it."""
@@ -355,7 +358,7 @@ class Dashboard(pn.viewable.Viewer):
             copy_ = clone_element(els[index])
             s.aperture.elements = [*els[: index + 1], copy_, *els[index + 1 :]]
 
-        return self._edit(change, select=index + 1)
+        return self._reframing_edit(change, select=index + 1)
 
     def remove_element(self, index: int) -> bool:
         """Delete element ``index``."""
@@ -367,7 +370,16 @@ class Dashboard(pn.viewable.Viewer):
             del els[index]
             s.aperture.elements = els
 
-        return self._edit(change, select=max(0, index - 1))
+        return self._reframing_edit(change, select=max(0, index - 1))
+
+    def _reframing_edit(self, change: Callable[[Setup], None], *, select: int) -> bool:
+        """An edit after which the map opens on the screen window again (add, delete)."""
+        before = self._reframe
+        self._reframe = True
+        ok = self._edit(change, select=select)
+        if not ok:
+            self._reframe = before
+        return ok
 
     def move_element(self, index: int, step: int) -> bool:
         """Move element ``index`` by ``step`` places in the painting order."""
@@ -388,6 +400,7 @@ class Dashboard(pn.viewable.Viewer):
         if self._read_only():  # follow mode hook
             return
         self.selected = 0
+        self._reframe = True  # the map opens on the new window
         self._commit(clone(setup), view=setup.view)
         self.notify("info", f"Loaded {origin}.")
 
@@ -395,10 +408,14 @@ class Dashboard(pn.viewable.Viewer):
         self.setup = candidate
         if view is not None:
             self._apply_view(view)
+        if self._threaded:
+            # The worker computes while the controls, the panels and the address follow.
+            self._request_compute()
         self._refresh_controls()
         self._run_setup_hooks()
         self._mirror_url()
-        self._request_compute()
+        if not self._threaded:
+            self._request_compute()
 
     def _run_setup_hooks(self) -> None:
         for hook in self.setup_hooks:
@@ -573,7 +590,7 @@ class Dashboard(pn.viewable.Viewer):
             if event.name == "scale":
                 self._build_plots()
             else:
-                self._send_map()
+                self._map_plot.set_cmap(self.cmap)
             self._update_state()
         if not self._applying_view:
             self._mirror_url()
@@ -754,15 +771,11 @@ class Dashboard(pn.viewable.Viewer):
         self.element_editor = pn.Column(sizing_mode="stretch_width")
 
         # Views.
-        self.map_pane = pn.pane.HoloViews(None, sizing_mode="stretch_width", css_classes=["fb-map"])
+        self.map_pane = pn.pane.Bokeh(None, css_classes=["fb-map"])
         self.cut_x_pane = pn.pane.Bokeh(None, sizing_mode="stretch_width", css_classes=["fb-cut-x"])
         self.cut_y_pane = pn.pane.Bokeh(None, sizing_mode="stretch_width", css_classes=["fb-cut-y"])
-        self.aperture_pane = pn.pane.HoloViews(
-            None, sizing_mode="stretch_width", css_classes=["fb-aperture"]
-        )
-        self.phase_pane = pn.pane.HoloViews(
-            None, sizing_mode="stretch_width", css_classes=["fb-phase"]
-        )
+        self.aperture_pane = pn.pane.Bokeh(None, css_classes=["fb-aperture"])
+        self.phase_pane = pn.pane.Bokeh(None, css_classes=["fb-phase"])
         self.numbers_pane = _html("", sizing_mode="stretch_width", css_classes=["fb-numbers-pane"])
         self.validity_pane = _html(
             "", sizing_mode="stretch_width", css_classes=["fb-validity-pane"]
@@ -878,95 +891,106 @@ class Dashboard(pn.viewable.Viewer):
     # ------------------------------------------------------------------- views
 
     def _build_plots(self) -> None:
-        """(Re)create the plots; needed once, and when the scale changes."""
-        self._map_pipe = hv.streams.Pipe(data=self._map_data)
-        self._cross_spans = views.crosshair_spans()
-        scale = self.scale
-        # True colour is display only; a DynamicMap holds one kind of element, so the
-        # switch rebuilds the plots.
-        colour = getattr(self, "true_colour", None)
-        colour_on = colour is not None and colour.shown
-        if colour is not None:
-            colour.built_with = colour_on
+        """Create the plots once; the cuts again when the scale changes (their axis type).
 
-        def image(data):
-            if colour_on:
-                return colour.view(data)
-            x, y, z = data
-            return views.map_view(x, y, z, scale=scale, cmap=self.cmap)
-
-        spans = self._cross_spans
-
-        def add_crosshair(plot, _element) -> None:
-            # The crosshair lives on the map's own figure; clicks only move it.
-            fig = plot.state
-            if spans[0] not in fig.center:
-                for span in spans:
-                    fig.add_layout(span)
-            self._place_crosshair()
-
-        img = hv.DynamicMap(image, streams=[self._map_pipe]).opts(hooks=[add_crosshair])
-        self._tap = hv.streams.Tap(source=img, x=None, y=None)
-        self._tap.add_subscriber(self._tapped)
-        self.map_pane.object = img
-
+        The map and the aperture previews are plain Bokeh figures updated in place
+        (server.mapplot), each with ranges of its own.
+        """
+        if getattr(self, "_map_plot", None) is None:
+            self._map_plot = mapplot.MapPlot(scale=self.scale, cmap=self.cmap, on_tap=self._tapped)
+            self.map_pane.object = self._map_plot.figure
+        else:
+            self._map_plot.set_scale(self.scale)
         # The cuts are plain Bokeh figures updated in place (server.cutplot).
-        self._cut_plots = {a: cutplot.CutPlot(a, scale=scale) for a in ("x", "y")}
+        self._cut_plots = {a: cutplot.CutPlot(a, scale=self.scale) for a in ("x", "y")}
         self.cut_x_pane.object = self._cut_plots["x"].figure
         self.cut_y_pane.object = self._cut_plots["y"].figure
         self._plots_built = True
-        self._send_cuts()
-
-    def _tapped(self, x: float | None = None, y: float | None = None) -> None:
-        if x is None or y is None:
-            return
-        move = functools.partial(self.set_cut, x * 1e-3, y * 1e-3)
-        if self._doc is not None and self._doc.session_context is not None:
-            # HoloViews calls this outside the document lock; the cut plots are plain
-            # Bokeh models, changed only under it (the next tick of this session).
-            self._doc.add_next_tick_callback(move)
-        else:
-            move()
-
-    def _show_result(self) -> None:
-        r = self.result
-        self._map_data = (r.x, r.y, np.asarray(r.intensity, dtype=np.float32))
-        if not self._plots_built:
-            self._build_plots()
         self._send_map()
         self._send_cuts()
-        if self._preview is not None:
-            self._send_aperture(self._preview)
-            self._preview = None
+
+    def _tapped(self, x: float, y: float) -> None:
+        """A click on the map at (x, y) mm: Bokeh calls this under the document lock."""
+        if x is None or y is None or not (math.isfinite(x) and math.isfinite(y)):
+            return
+        self.set_cut(x * 1e-3, y * 1e-3)
+
+    def _show_result(self) -> None:
+        """Put the result on the page: the pictures first, the readings a tick later.
+
+        The map, the cuts, the aperture previews, the panels' hooks and the state go
+        to the browser in one message; the readings (which take a few tens of ms to
+        read off the map) follow in the next tick, so the map is not kept waiting.
+        The state's ``data-numbers`` is the key of the result whose readings show.
+        """
+        r = self.result
+        self._map_data = (r.x, r.y, r.intensity)  # the map figure sends it as float32
+        with pn.io.hold(self._doc):
+            if not self._plots_built:
+                self._build_plots()
+            self._send_map(fresh=True)
+            self._send_cuts()
+            if self._preview is not None:
+                self._send_aperture(self._preview)
+                self._preview = None
+            self._run_result_hooks()
+            self._update_state()
+        if self._doc is not None and self._doc.session_context is not None:
+            self._doc.add_next_tick_callback(functools.partial(self._show_numbers, r))
+        else:
+            self._show_numbers(r)
+
+    def _show_numbers(self, r: Any) -> None:
+        """The readings and the validity card of result ``r`` (unless a newer one shows)."""
+        if r is not self.result:
+            return  # the newer result shows its own readings
         meta = dict(r.meta())
         meta["cached"] = bool(getattr(r, "cached", False))
         meta.setdefault("reasons", list(getattr(r.plan, "reasons", [])))
         meta["elapsed_s"] = float(getattr(r, "elapsed_s", meta.get("elapsed_s", 0.0)))
         numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
-        self.numbers_pane.object = views.numbers_card(numbers, meta, cut_label=self._closed.label)
-        self.validity_pane.object = views.validity_card([v.to_dict() for v in r.validity])
-        self.verdict_banner.object = views.verdict_banner(r.plan)
-        self.verdict_banner.visible = bool(self.verdict_banner.object)
-        self._run_result_hooks()
-        self._update_state()
+        with pn.io.hold(self._doc):
+            card = views.numbers_card(numbers, meta, cut_label=self._closed.label)
+            if card != self.numbers_pane.object:
+                self.numbers_pane.object = card
+            validity = views.validity_card([v.to_dict() for v in r.validity])
+            if validity != self.validity_pane.object:
+                self.validity_pane.object = validity
+            banner = views.verdict_banner(r.plan)
+            if banner != self.verdict_banner.object:
+                self.verdict_banner.object = banner
+            self.verdict_banner.visible = bool(banner)
+            self._numbers_key = r.key
+            self._update_state()
 
     def _send_aperture(self, preview: tuple) -> None:
         """Show a new aperture preview, updating the plots in place once they exist."""
         self._preview_shown = preview  # follow mode hook: what a new follower is sent
-        if getattr(self, "_aperture_pipe", None) is None:
-            self._aperture_pipe = hv.streams.Pipe(data=preview)
-            self.aperture_pane.object = hv.DynamicMap(
-                lambda data: views.aperture_view(*data)[0], streams=[self._aperture_pipe]
-            )
-            self.phase_pane.object = hv.DynamicMap(
-                lambda data: views.aperture_view(*data)[1], streams=[self._aperture_pipe]
-            )
-        else:
-            self._aperture_pipe.send(preview)
+        if getattr(self, "_aperture_views", None) is None:
+            self._aperture_views = mapplot.ApertureViews()
+            self.aperture_pane.object = self._aperture_views.amplitude
+            self.phase_pane.object = self._aperture_views.phase
+        self._aperture_views.show(*preview)
 
-    def _send_map(self) -> None:
-        if self._map_data is not None:
-            self._map_pipe.send(self._map_data)
+    def _send_map(self, *, fresh: bool = False) -> None:
+        """Put the map at hand on the map figure (in true colour when that is shown).
+
+        ``fresh``: a new result; the view moves to the window when a load or an element
+        added or deleted asked for it (a changed window always moves it).
+        """
+        if self._map_data is None or getattr(self, "_map_plot", None) is None:
+            return
+        x, y, z = self._map_data
+        colour = getattr(self, "true_colour", None)
+        rgb = None
+        if colour is not None:
+            shown = colour.shown
+            colour.built_with = shown
+            rgb = colour.rgb() if shown else None
+        reframe = fresh and self._reframe
+        if fresh:
+            self._reframe = False
+        self._map_plot.show(x, y, z, rgb=rgb, reframe=reframe)
 
     def _cut_data(self, axis: str) -> dict | None:
         r = self.result
@@ -976,12 +1000,20 @@ class Dashboard(pn.viewable.Viewer):
         i = views.nearest(r.x, self.cut_x)
         fn = self._closed.fn
         ref = None
+
+        # The title gives the position asked for (the window centre by default), to a
+        # pixel's digits; the data are the row or column nearest it.
+        def step(a: np.ndarray) -> float | None:
+            return float(a[1] - a[0]) if a.size > 1 else None
+
         if axis == "x":
-            coords, values, at, marker = r.x, r.intensity[j, :], float(r.y[j]), float(r.x[i])
+            coords, values, marker = r.x, r.intensity[j, :], float(r.x[i])
+            at, pixel = min(max(self.cut_y, float(r.y[0])), float(r.y[-1])), step(r.y)
             if fn is not None:
                 ref = self._reference(fn, r.x, np.full_like(r.x, r.y[j]))
         else:
-            coords, values, at, marker = r.y, r.intensity[:, i], float(r.x[i]), float(r.y[j])
+            coords, values, marker = r.y, r.intensity[:, i], float(r.y[j])
+            at, pixel = min(max(self.cut_x, float(r.x[0])), float(r.x[-1])), step(r.x)
             if fn is not None:
                 ref = self._reference(fn, np.full_like(r.y, r.x[i]), r.y)
         return {
@@ -989,6 +1021,7 @@ class Dashboard(pn.viewable.Viewer):
             "values": values,
             "axis": axis,
             "at": at,
+            "step": pixel,
             "marker": marker,
             "reference": ref,
             "reference_label": self._closed.label.removeprefix("closed form: "),
@@ -1012,9 +1045,8 @@ class Dashboard(pn.viewable.Viewer):
         self.overlay_note.object = f'<span class="fb-note">{html.escape(note)}</span>'
 
     def _place_crosshair(self) -> None:
-        vertical, horizontal = self._cross_spans
-        vertical.location = self.cut_x * 1e3  # the map's axes are in mm
-        horizontal.location = self.cut_y * 1e3
+        if getattr(self, "_map_plot", None) is not None:
+            self._map_plot.place_crosshair(self.cut_x * 1e3, self.cut_y * 1e3)  # mm
 
     def _set_busy_view(self, busy: bool) -> None:
         self.spinner.value = busy
@@ -1058,6 +1090,7 @@ class Dashboard(pn.viewable.Viewer):
                     "cut-col-sum": repr(float(r.intensity[:, i].sum())),
                     "overlay": self._closed.label,
                     "elapsed-ms": f"{r.elapsed_s * 1e3:.1f}",
+                    "numbers": getattr(self, "_numbers_key", ""),
                     "cached": int(bool(getattr(r, "cached", False))),
                 }
             )

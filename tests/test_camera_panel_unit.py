@@ -269,27 +269,44 @@ def test_the_camera_panel_hides_when_a_result_has_no_frame(dash):
 # ------------------------------------------------------------------- true colour
 
 
-def _map_element(d: Dashboard):
-    return d.map_pane.object[()]  # the map element itself (the crosshair is Bokeh spans)
+def _map_kind(d: Dashboard) -> str:
+    """What the map figure shows: ``'rgb'`` (true colour) or ``'image'`` (irradiance)."""
+    plot = d._map_plot
+    assert d.map_pane.object is plot.figure
+    if plot.rgba.visible:
+        assert not plot.image.visible and len(plot.rgba_source.data["image"]) == 1
+        return "rgb"
+    assert plot.image.visible and len(plot.rgba_source.data["image"]) == 0
+    return "image"
+
+
+def _map_rgb(d: Dashboard) -> np.ndarray:
+    """The true-colour image the map figure holds, (ny, nx, 4) bytes (RGBA)."""
+    packed = np.asarray(d._map_plot.rgba_source.data["image"][0])
+    return packed.view(np.uint8).reshape(*packed.shape, 4)
 
 
 def test_true_colour_of_532_nm_is_green_and_computes_nothing(dash):
     runs, key = dash.computations, dash.result.key
-    assert isinstance(_map_element(dash), hv.Image)
+    assert _map_kind(dash) == "image"
     dash.true_colour.toggle.value = True
-    img = _map_element(dash)
-    assert isinstance(img, hv.RGB)
-    r, g, b = (img.dimension_values(c).sum() for c in "RGB")
+    assert _map_kind(dash) == "rgb"
+    img = _map_rgb(dash)
+    r, g, b = (float(img[..., c].sum()) for c in range(3))
     # 532 nm lies outside the sRGB gamut on the green side: clipped, it is pure green
     # (CIE 1931 2° observer, CIE 015:2018; sRGB matrix, IEC 61966-2-1).
     assert g > 0 and r == pytest.approx(0.0, abs=1e-9) and b == pytest.approx(0.0, abs=1e-9)
     assert dash.state_extra["colour-shown"] == 1
     assert dash.computations == runs and dash.result.key == key
-    # Same axes as the irradiance map, in mm.
-    assert np.allclose(img.dimension_values(0, expanded=False), dash.result.x * 1e3)
-    assert np.allclose(img.dimension_values(1, expanded=False), dash.result.y * 1e3)
+    # Same place and pixels as the irradiance map, in mm.
+    assert img.shape[:2] == dash.result.intensity.shape
+    rgba, irr = dash._map_plot.rgba_source.data, dash._map_plot.source.data
+    for k in ("x", "y", "dw", "dh"):
+        assert rgba[k] == irr[k]
+    dx = dash.result.x[1] - dash.result.x[0]
+    assert rgba["x"][0] == pytest.approx((dash.result.x[0] - dx / 2) * 1e3)
     dash.true_colour.toggle.value = False
-    assert isinstance(_map_element(dash), hv.Image)
+    assert _map_kind(dash) == "image"
     assert dash.state_extra["colour-shown"] == 0
 
 
@@ -321,13 +338,13 @@ def test_invisible_light_disables_true_colour_and_says_why(dash):
     assert dash.set_value("source.wavelength", 1.064e-6)
     assert dash.true_colour.toggle.disabled
     assert "outside the visible band" in dash.true_colour.note.object
-    assert isinstance(_map_element(dash), hv.Image)  # the irradiance map instead
+    assert _map_kind(dash) == "image"  # the irradiance map instead
     assert dash.state_extra["colour-visible"] == 0 and dash.state_extra["colour-shown"] == 0
     assert not colour_view.visible_light(dash.setup.source)
     # Back in the visible, the switch (still on) shows the colour again.
     assert dash.set_value("source.wavelength", 6.33e-7)
     assert not dash.true_colour.toggle.disabled
-    assert isinstance(_map_element(dash), hv.RGB)
+    assert _map_kind(dash) == "rgb"
 
 
 def test_a_band_reaching_into_the_visible_counts_as_visible():
@@ -343,7 +360,7 @@ def test_true_colour_is_saved_in_the_view_and_read_back(dash):
     dash.true_colour.toggle.value = False
     assert dash.import_snapshot(text.encode(), name="saved.json")
     assert dash.true_colour.toggle.value is True
-    assert isinstance(_map_element(dash), hv.RGB)
+    assert _map_kind(dash) == "rgb"
     # A snapshot whose view does not say switches it off.
     doc = json.loads(text)
     doc["view"] = {}

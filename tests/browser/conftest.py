@@ -141,7 +141,9 @@ def wait_state(pg, check, *, timeout: float = 60.0, what: str = "the page state"
             last = state(pg)
         except Exception:  # the state element is not attached yet
             last = {}
-        if last and last.get("busy") == "0" and check(last):
+        # The readings follow the map a tick later (data-numbers: their result's key).
+        settled = last.get("numbers", last.get("key")) == last.get("key")
+        if last and last.get("busy") == "0" and settled and check(last):
             return last
         pg.wait_for_timeout(100)
     raise AssertionError(f"timed out waiting for {what}; last state: {last}")

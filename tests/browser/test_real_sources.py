@@ -232,8 +232,16 @@ def test_a_bad_camera_value_is_a_clear_message_and_changes_nothing(kit):
 
 
 def _rgb_sums(kit, st: dict) -> dict:
-    """The channel sums of the true-colour map (a replaced map may linger: all must agree)."""
-    shown = [im for im in kit.page.evaluate(READ_IMAGES)["rgba"] if im["shape"] == st["shape"]]
+    """The channel sums of the true-colour map (a replaced map may linger: all must agree).
+
+    The image travels in its own message: wait up to 10 s for it to arrive.
+    """
+    shown = []
+    for _ in range(100):
+        shown = [im for im in kit.page.evaluate(READ_IMAGES)["rgba"] if im["shape"] == st["shape"]]
+        if shown:
+            break
+        kit.page.wait_for_timeout(100)
     assert shown and all(im == shown[0] for im in shown), shown
     return shown[0]
 
