@@ -46,6 +46,7 @@ from server import (
     sweep_panel,
     urlstate,
     views,
+    wording,
 )
 from server.controls import SHAPE_LABELS, ElementEditor, SetupControls, to_display
 
@@ -213,21 +214,25 @@ class Dashboard(pn.viewable.Viewer):
 
     # ------------------------------------------------------------------- editing
 
-    def _unit_of(self, path: str) -> str:
+    def _range_message(self, path: str, p: param.Number, value: float | None) -> str:
+        """Why ``value`` (SI) is refused, in the words and unit of the control that edits it."""
         c = self._controls_by_path.get(path)
-        return c.unit if c is not None else ""
-
-    def _range_message(self, path: str, p: param.Number, value: float) -> str:
-        unit = self._unit_of(path)
-        lo, hi = p.bounds
-        show = (lambda v: to_display(v, unit)) if unit else (lambda v: v)
-        si_unit = "" if unit else (p.metadata or {}).get("unit", "")
-        u = unit or si_unit
-        low = "above" if not p.inclusive_bounds[0] else "at least"
-        return (
-            f"{path}: {show(value):.6g} {u} is outside the allowed range "
-            f"({low} {show(lo):.6g} {u}, at most {show(hi):.6g} {u})"
-        ).replace("  ", " ")
+        if c is not None:
+            shown = None if value is None else (value if c.integer else to_display(value, c.unit))
+            text = c.check(shown, c.shown)
+            if text is not None:
+                return text
+        lo, hi = p.bounds or (None, None)
+        unit = (p.metadata or {}).get("unit", "")
+        return wording.refusal(
+            controls.path_label(path),
+            unit,
+            value,
+            lo,
+            hi,
+            lower_open=not p.inclusive_bounds[0],
+            upper_open=not p.inclusive_bounds[1],
+        ) or f"{controls.path_label(path)}: {value} is refused"
 
     def _resolve(self, setup: Setup, path: str) -> tuple[param.Parameterized, str]:
         m = _PATH.match(path)
@@ -272,13 +277,15 @@ class Dashboard(pn.viewable.Viewer):
             obj, name = self._resolve(candidate, path)
             value = self._convert(path, name, value)
             p = obj.param[name]
+            if isinstance(p, param.Number):
+                missing = value is None and not p.allow_None
+                if missing or (isinstance(value, float) and not math.isfinite(value)):
+                    raise ValueError(self._range_message(path, p, None))
             if (
                 isinstance(p, param.Number)
                 and isinstance(value, (int, float))
                 and not isinstance(value, bool)
             ):
-                if not math.isfinite(value):
-                    raise ValueError(f"{path}: expected a finite number")
                 lo, hi = p.bounds or (None, None)
                 low_ok = lo is None or (value >= lo if p.inclusive_bounds[0] else value > lo)
                 high_ok = hi is None or (value <= hi if p.inclusive_bounds[1] else value < hi)
@@ -292,14 +299,18 @@ class Dashboard(pn.viewable.Viewer):
             if problems:
                 raise ValueError("; ".join(f"{pp}: {mm}" for pp, mm in problems))
         except ValueError as exc:
-            self._reject(str(exc))
+            self._reject(str(exc), path=path)
             return False
         self._commit(candidate)
         return True
 
-    def _reject(self, text: str) -> None:
-        self.notify("error", text)
+    def _reject(self, text: str, *, path: str | None = None) -> None:
+        """Say why a change is refused (in the page's words) and show the committed values."""
+        self.notify("error", wording.plain(text, controls.path_label))
         self._refresh_controls()
+        c = self._controls_by_path.get(path) if path else None
+        if c is not None:
+            c.restore()
 
     def _edit(self, change: Callable[[Setup], None], *, select: int | None = None) -> bool:
         """Apply ``change`` to a copy of the setup; commit it when the copy checks out."""
