@@ -3,8 +3,9 @@
 A snapshot path (``screen.samples``, ``aperture.elements[1].width``) is how the
 code names a setting; a person sees its label ("Pixels across", "element 2
 width"; :func:`server.controls.path_label`). Messages that reach the page go
-through :func:`plain`, which puts the labels in place of the paths, and a refused number is said with
-:func:`refusal` in the control's own unit ("Distance must be more than 0 m").
+through :func:`plain`, which puts the labels in place of the paths, and a
+refused number is said with :func:`refusal` in the control's own unit
+("Distance must be more than 0 m").
 Numbers are written with :func:`number` (significant digits, no trailing zeros)
 and lengths with :func:`length` (mm below 0.1 m, µm below 0.1 mm).
 """
