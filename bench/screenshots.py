@@ -89,9 +89,8 @@ def run(out: Path, viewports: list[str]) -> None:
                 for title, path in presets.items():
                     before = _state(pg).get("setup-key")
                     pg.locator(".fb-preset select").first.select_option(label=title)
-                    _settle(
-                        pg, lambda s, b=before: s.get("setup-key") != b or path.stem == "default"
-                    )
+                    same = path.stem == "default"  # the page opens on it
+                    _settle(pg, lambda s, b=before, same=same: same or s.get("setup-key") != b)
                     pg.evaluate("() => window.scrollTo(0, 0)")
                     pg.wait_for_timeout(300)
                     _shoot(pg, folder / f"preset-{path.stem}.png")

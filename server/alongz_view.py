@@ -645,6 +645,8 @@ class AlongZView:
             lambda data: _marker(data, z_range), streams=[self._marker_pipe]
         )
         self.image_pane.object = img * unresolved_overlay(data) * boundary_overlay(data) * marker
+        # No empty plots before the first image: the note says what happens instead.
+        self.image_pane.visible = self.curve_pane.visible = data is not None
         self.curve_pane.object = on_axis_view(data) * curve_marker
 
     # --------------------------------------------------------------------- hooks
