@@ -456,7 +456,7 @@ def on_axis_view(az: AlongZ | None) -> hv.Curve:
         title=f"On the axis (x = {az.x[i] * _MM:.3g} mm)"
         + (f"; grey dashed: {UNRESOLVED_TEXT}" if not resolved.all() else ""),
     )
-    return unresolved_overlay(az, label=False) * curve * grey
+    return curve * grey * unresolved_overlay(az, label=False)
 
 
 # ---------------------------------------------------------------------------- panel

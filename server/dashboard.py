@@ -800,6 +800,18 @@ class Dashboard(pn.viewable.Viewer):
             height=70,
         )
         self.title_input.param.watch(self._meta_typed, "value")
+        self.reading_hint_text = _html("", sizing_mode="stretch_width")
+        widen = pn.widgets.Button(
+            name="Widen the window ×2", variant="outline", css_classes=["fb-widen"], width=180
+        )
+        widen.on_click(lambda _e: self.widen_window())
+        self.reading_hint = pn.Column(
+            self.reading_hint_text,
+            widen,
+            visible=False,
+            sizing_mode="stretch_width",
+            css_classes=["fb-reading-hint"],
+        )
         self.problem_text = _html("", sizing_mode="stretch_width", css_classes=["fb-problem"])
         self.fix_button = pn.widgets.Button(
             name="", color="warning", css_classes=["fb-fix"], visible=False, width=190
@@ -1084,9 +1096,27 @@ class Dashboard(pn.viewable.Viewer):
         meta["elapsed_s"] = float(getattr(r, "elapsed_s", meta.get("elapsed_s", 0.0)))
         numbers = views.read_numbers(r.x, r.y, r.intensity, r.power_in)
         self.numbers_pane.object = views.numbers_card(numbers, meta, cut_label=self._closed.label)
+        self._show_reading_hint(numbers)
         self.validity_pane.object = views.validity_card([v.to_dict() for v in r.validity])
         self._run_result_hooks()
         self._update_state()
+
+    def _show_reading_hint(self, numbers: dict) -> None:
+        """Say which readings the window cannot give, with a button that widens it."""
+        missing = wording.missing_readings(numbers)
+        self.reading_hint.visible = bool(missing)
+        if missing:
+            text = "; ".join(missing).capitalize() + "."
+            self.reading_hint_text.object = f'<div class="fb-hint">{html.escape(text)}</div>'
+
+    def widen_window(self, factor: float = 2.0) -> bool:
+        """Make the screen window ``factor`` times wider and taller (the hint's button)."""
+
+        def change(s: Setup) -> None:
+            s.screen.width = float(f"{s.screen.width * factor:.12g}")
+            s.screen.height = float(f"{s.screen.height * factor:.12g}")
+
+        return self._edit(change)
 
     def _send_aperture(self, preview: tuple) -> None:
         """Show a new aperture preview, updating the plots in place once they exist."""
@@ -1325,7 +1355,7 @@ class Dashboard(pn.viewable.Viewer):
             pn.Row(
                 self.map_pane,
                 self.camera_slot,
-                pn.Column(self.numbers_pane, width=320),
+                pn.Column(self.numbers_pane, self.reading_hint, width=320),
                 sizing_mode="stretch_width",
             ),
             self.overlay_note,

@@ -248,6 +248,8 @@ def _validity_marks(xs, ys, verdicts: list[str], kdims) -> list[Any]:
     layers = []
     for verdict, style in VALIDITY_MARKS.items():
         keep = [k for k, v in enumerate(verdicts) if v == verdict]
+        if not keep:
+            continue
         data = {
             kdims[0].name: np.asarray(xs, dtype=np.float64)[keep],
             kdims[1].name: np.asarray(ys, dtype=np.float64)[keep],

@@ -22,6 +22,8 @@ __all__ = [
     "Fix",
     "fix_for",
     "length",
+    "longest_exposure",
+    "missing_readings",
     "number",
     "plain",
     "refusal",
@@ -128,3 +130,34 @@ def fix_for(path: str, text: str, grid: int) -> Fix | None:
     if path == "numerics.method" and "Rayleigh" in text:
         return Fix("Set method to automatic", "numerics.method", "auto")
     return None
+
+
+def missing_readings(numbers: dict) -> list[str]:
+    """Which readings the window cannot give, in plain words (empty when all are there).
+
+    ``numbers`` is :func:`server.views.read_numbers`: the first minima either side
+    of the peak along x, the central lobe along x and y are None when the window
+    ends before the first dark fringe.
+    """
+    if numbers.get("peak") in (None, 0) or numbers.get("peak_x") is None:
+        return []
+    out = []
+    if numbers.get("first_min_left") is None or numbers.get("first_min_right") is None:
+        out.append("the first minima along x fall outside the window")
+    lobe = [a for a in ("x", "y") if numbers.get(f"central_lobe_{a}") is None]
+    if lobe:
+        out.append(f"the central lobe along {' and '.join(lobe)} is wider than the window")
+    return out
+
+
+def longest_exposure(exposure: float, peak_electrons: float, full_well: float) -> float | None:
+    """The longest exposure (s) at which the brightest pixel stays below the full well.
+
+    The mean photoelectrons grow in proportion to the exposure (the linear camera
+    model, EMVA 1288 release 4.0), so the brightest pixel reaches the full well at
+    ``exposure × full_well / peak_electrons``. With shot noise a pixel can still
+    fill on a bright draw near that time. None when no light arrives.
+    """
+    if not (peak_electrons > 0 and exposure > 0 and full_well > 0):
+        return None
+    return exposure * full_well / peak_electrons
