@@ -10,6 +10,7 @@ show the committed value again, so that a rejected input changes nothing.
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -145,6 +146,9 @@ class QuantityControl:
                 **common,
             )
             self.widget.param.watch(self._changed, "value_throttled")
+            # A value typed into the slider's box that is refused may arrive as ``value``
+            # alone (not ``value_throttled``): it is said at once all the same.
+            self.widget.param.watch(self._typed, "value")
         elif self.integer:
             self.widget = pn.widgets.IntInput(
                 step=int(field.step or 1),
@@ -161,6 +165,7 @@ class QuantityControl:
             )
             self.widget.param.watch(self._changed, "value")
         self._shown: float | None = None
+        self._refused: tuple[float, float] | None = None  # (value, second it came)
 
     def check(self, value: float | None, current: float | None = None) -> str | None:
         """Why ``value`` (display units) is refused, in the control's words; None when fine.
@@ -183,9 +188,21 @@ class QuantityControl:
         """The last valid value the control showed, in display units."""
         return self._shown
 
+    def _typed(self, event: param.parameterized.Event) -> None:
+        if self._muted or event.new is None:
+            return
+        if self.check(float(event.new)) is not None:
+            self._changed(event)
+
     def _changed(self, event: param.parameterized.Event) -> None:
         if self._muted:
             return
+        now = time.monotonic()
+        last = self._refused
+        if event.new is not None and last and last[0] == event.new and now - last[1] < 0.5:
+            return  # the same refused value again at once (the slider reports it twice)
+        bad = event.new is not None and self.check(float(event.new)) is not None
+        self._refused = (event.new, now) if bad else None
         if event.new is None:  # an emptied box: refused like any value that is no number
             self._on_change(self.path, None)
             return
