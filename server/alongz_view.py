@@ -176,8 +176,8 @@ def _cut_positions(setup: Setup) -> np.ndarray:
         return x
     axis = 0.0 if lo <= 0.0 <= hi else float(setup.screen.x)
     step = (hi - lo) / (POINTS_X - 1)
-    below = math.floor((axis - lo) / step + 1e-9)
-    above = math.floor((hi - axis) / step + 1e-9)
+    below = math.ceil((axis - lo) / step - 1e-9)
+    above = math.ceil((hi - axis) / step - 1e-9)
     return axis + step * np.arange(-below, above + 1, dtype=np.float64)
 
 

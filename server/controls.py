@@ -181,6 +181,7 @@ class QuantityControl:
             lower_open=self.lower_open,
             upper_open=self.upper_open,
             current=current,
+            integer=self.integer,
         )
 
     @property

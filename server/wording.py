@@ -88,16 +88,19 @@ def refusal(
     lower_open: bool = False,
     upper_open: bool = False,
     current: float | None = None,
+    integer: bool = False,
 ) -> str | None:
     """Why ``value`` (display units) is refused, in the control's words; None when it is fine.
 
-    ``current`` is the value the setting keeps, said at the end when given.
+    ``current`` is the value the setting keeps, said at the end when given. A
+    length, wavelength or time whose model bound is a tiny positive number is said
+    to need "more than 0" when a value of 0 or less is given.
     """
     u = f" {unit}" if unit else ""
     keeps = "" if current is None else f"; it stays at {number(current, 6)}{u}"
     if value is None or isinstance(value, bool) or not math.isfinite(value):
         return f"{label} needs a number{keeps}"
-    if lower is not None and lower > 0 and value <= 0:
+    if not integer and lower is not None and 0 < lower < 1 and value <= 0:
         # A length, a wavelength, a pitch: what matters is that it is positive.
         return f"{label} must be more than 0{u}{keeps}"
     if lower is not None and (value < lower or (lower_open and value <= lower)):
