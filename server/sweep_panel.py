@@ -422,7 +422,7 @@ class _AxisControls:
         self.panel = pn.Column(
             self.path,
             pn.Row(self.start, self.stop, self.unit, self.count, self.spacing),
-            width=560,
+            sizing_mode="stretch_width",
         )
 
 
@@ -518,9 +518,9 @@ class SweepPanel:
         self.metric.param.watch(lambda _e: self._redraw(), "value")
         self.logy.param.watch(lambda _e: self._redraw(), "value")
         self.panel = pn.Column(
-            pn.FlexBox(
-                self.axis1.panel, self.axis2.panel, flex_wrap="wrap", sizing_mode="stretch_width"
-            ),
+            # One setting under the other: side by side they do not fit at 1280 px.
+            self.axis1.panel,
+            self.axis2.panel,
             pn.FlexBox(
                 self.metric,
                 self.logy,
