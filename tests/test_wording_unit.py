@@ -354,3 +354,14 @@ def test_sweep_points_with_a_doubtful_report_are_marked_and_log_y_is_offered():
 
     opts = Store.lookup_options("bokeh", next(iter(view)), "plot").kwargs
     assert opts.get("logy") is True
+
+
+def test_a_short_screen_distance_is_also_shown_in_mm():
+    s = _slit()
+    s.screen.distance = 0.00617
+    d = Dashboard(s, threaded=False)
+    w = d.controls.screen["distance"].widget
+    assert w.label == "Distance (m) = 6.17 mm"
+    assert w.format == controls.NUMBER_FORMAT == "0.[000000]"  # 0.00617, not 0.006
+    assert d.set_value("screen.distance", 1.5)
+    assert w.label == "Distance (m)"
