@@ -90,7 +90,12 @@ def run(out: Path, viewports: list[str]) -> None:
                     before = _state(pg).get("setup-key")
                     pg.locator(".fb-preset select").first.select_option(label=title)
                     same = path.stem == "default"  # the page opens on it
-                    _settle(pg, lambda s, b=before, same=same: same or s.get("setup-key") != b)
+                    _settle(
+                        pg,
+                        lambda s, b=before, same=same: (
+                            (same or s.get("setup-key") != b) and s.get("key") == s.get("setup-key")
+                        ),
+                    )
                     pg.evaluate("() => window.scrollTo(0, 0)")
                     pg.wait_for_timeout(300)
                     _shoot(pg, folder / f"preset-{path.stem}.png")
@@ -111,6 +116,7 @@ def run(out: Path, viewports: list[str]) -> None:
                 count.press("Enter")
                 pg.locator(".fb-sweep-run button").first.click()
                 _settle(pg, lambda s: s.get("sweep-state") in ("done", "failed", "cancelled"))
+                pg.wait_for_timeout(1500)  # the buttons follow the last point
                 pg.locator(".fb-sweep").first.scroll_into_view_if_needed()
                 pg.wait_for_timeout(500)
                 _shoot(pg, folder / "tab-sweep.png")

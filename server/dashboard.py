@@ -405,7 +405,9 @@ class Dashboard(pn.viewable.Viewer):
         self.selected = 0
         self._own_meta = False
         self.preset_loaded = None  # until the new setup is in place
-        self._commit(clone(setup), view=setup.view)
+        # A display setting the snapshot leaves out takes its default, not the last one's.
+        view = {"scale": self.param["scale"].default, "cmap": self.param["cmap"].default}
+        self._commit(clone(setup), view=view | dict(setup.view or {}))
         self._match_preset(self.setup, preset)
         self.notify("info", f"Loaded {origin}.")
 
