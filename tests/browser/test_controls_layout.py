@@ -34,7 +34,8 @@ CONTROL_BOXES = """() => {
       if (String(el.className).includes('spin')) continue;
       const r = el.getBoundingClientRect();
       const s = getComputedStyle(el);
-      if (r.width < 2 || r.height < 2 || s.visibility === 'hidden' || s.display === 'none') continue;
+      if (r.width < 2 || r.height < 2) continue;
+      if (s.visibility === 'hidden' || s.display === 'none') continue;
       out.push({tag, x: r.left + scrollX, y: r.top + scrollY, w: r.width, h: r.height,
                 text: (el.value || el.innerText || el.type || '').slice(0, 30)});
     }
