@@ -34,7 +34,7 @@ import holoviews as hv
 import numpy as np
 import panel as pn
 
-from compute import alongz, planning, snapshot
+from compute import alongz, apertures, planning, snapshot
 from compute.alongz import AlongZ
 from compute.model import Setup
 from server import sharing
@@ -44,10 +44,14 @@ __all__ = [
     "TAB_TITLE",
     "AlongZView",
     "alongz_key",
+    "beam_frame",
     "boundary_overlay",
     "distance_ticks",
     "image_view",
+    "marker_position",
     "on_axis_view",
+    "unresolved_overlay",
+    "unresolved_runs",
 ]
 
 log = logging.getLogger("fringebench.alongz_view")
@@ -147,12 +151,34 @@ class _Cache:
 CACHE = _Cache(CACHE_SIZE)
 
 
+#: The cut reaches this many half-widths of the aperture either side of its centre.
+APERTURE_MARGIN = 1.5
+
+
 def _cut_positions(setup: Setup) -> np.ndarray:
-    """The screen's pixel centres along x, thinned to at most :data:`POINTS_X`."""
+    """Positions across the cut: the screen window and the aperture, one sample on the axis.
+
+    The cut spans the screen window and the aperture (with a margin), so that the
+    near field, as wide as the aperture, is on the image even when the window is
+    narrower (a lens focus). The positions are equally spaced, at most about
+    :data:`POINTS_X`, and one of them lies on the axis x = 0 when the span holds it
+    (else on the window's centre), so that the on-axis curve is on the axis. None of
+    this depends on the screen distance: moving the screen recomputes nothing.
+    """
     x = planning.screen_axes(setup)[0]
-    if x.size <= POINTS_X:
+    lo, hi = float(x[0]), float(x[-1])
+    box = apertures.aperture_bounds(setup.aperture)
+    if box is not None and math.isfinite(box[0]) and math.isfinite(box[1]):
+        centre, half = 0.5 * (box[0] + box[1]), 0.5 * (box[1] - box[0])
+        lo = min(lo, centre - APERTURE_MARGIN * half)
+        hi = max(hi, centre + APERTURE_MARGIN * half)
+    if x.size <= POINTS_X and (lo, hi) == (float(x[0]), float(x[-1])):
         return x
-    return np.linspace(float(x[0]), float(x[-1]), POINTS_X)
+    axis = 0.0 if lo <= 0.0 <= hi else float(setup.screen.x)
+    step = (hi - lo) / (POINTS_X - 1)
+    below = math.ceil((axis - lo) / step - 1e-9)
+    above = math.ceil((hi - axis) / step - 1e-9)
+    return axis + step * np.arange(-below, above + 1, dtype=np.float64)
 
 
 def _memory(setup: Setup) -> int:
@@ -209,6 +235,7 @@ def image_view(az: AlongZ | None) -> hv.Image:
     data = np.maximum(data, floor)
     left, right = _edges(logz)
     bottom, top = _edges(az.x * _MM)
+    frame = beam_frame(az)
     img = hv.Image(
         np.flipud(data), bounds=(left, bottom, right, top), kdims=[_LOGZ, _XCUT], vdims=[_IRR]
     )
@@ -228,8 +255,99 @@ def image_view(az: AlongZ | None) -> hv.Image:
         height=360,
         framewise=True,
         toolbar="above",
+        ylim=(frame[0] * _MM, frame[1] * _MM),
         title=f"Irradiance along the beam on the cut y = {az.y0 * _MM:.4g} mm",
     )
+
+
+#: Light weaker than this share of the brightest point at the same distance does not
+#: count for the frame of the image.
+FRAME_FLOOR = 1e-3
+
+
+def beam_frame(az: AlongZ) -> tuple[float, float]:
+    """The x range (m) that frames the beam: the aperture and the light at every distance.
+
+    The light is where the irradiance reaches :data:`FRAME_FLOOR` of the brightest
+    point at the same distance, anywhere in the drawn range; the aperture is its lit
+    region with :data:`APERTURE_MARGIN`. A margin of 5 % is added; the frame never
+    leaves the computed cut.
+    """
+    x = az.x
+    lo_cut, hi_cut = float(x[0]), float(x[-1])
+    data = np.asarray(az.intensity, dtype=np.float64)
+    peaks = data.max(axis=1, keepdims=True) if data.size else np.zeros((0, 1))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lit = ((data >= FRAME_FLOOR * peaks) & (peaks > 0)).any(axis=0)
+    lo, hi = (float(x[lit].min()), float(x[lit].max())) if lit.any() else (lo_cut, hi_cut)
+    box = az.plan.lit_box
+    if box is not None:
+        centre, half = 0.5 * (box[0] + box[1]), 0.5 * (box[1] - box[0])
+        lo = min(lo, centre - APERTURE_MARGIN * half)
+        hi = max(hi, centre + APERTURE_MARGIN * half)
+    pad = 0.05 * (hi - lo) if hi > lo else 0.05 * (hi_cut - lo_cut)
+    return max(lo_cut, lo - pad), min(hi_cut, hi + pad)
+
+
+def unresolved_runs(az: AlongZ) -> list[tuple[int, int]]:
+    """``[(start, stop), ...]``: runs of distances whose row the grid cannot resolve."""
+    bad = ~np.asarray(az.resolved, bool)
+    runs: list[tuple[int, int]] = []
+    k = 0
+    while k < bad.size:
+        if bad[k]:
+            j = k
+            while j + 1 < bad.size and bad[j + 1]:
+                j += 1
+            runs.append((k, j + 1))
+            k = j + 1
+        else:
+            k += 1
+    return runs
+
+
+_UNRESOLVED_STYLE = {"color": "#8892a6", "alpha": 0.55}
+UNRESOLVED_TEXT = "not resolved by the grid"
+
+
+def unresolved_overlay(az: AlongZ | None, *, label: bool = True) -> hv.Overlay:
+    """Grey bands over the distances the grid cannot resolve, labelled once.
+
+    Those rows keep only the spatial frequencies a grid of
+    :data:`compute.alongz.DEFAULT_MAX_GRID` samples holds; they are drawn under
+    the band so that they are not read as right.
+    """
+    layers: list[Any] = []
+    if az is not None:
+        logz = np.log10(az.z)
+        edges = (
+            np.concatenate(
+                [
+                    [logz[0] - (logz[1] - logz[0]) / 2],
+                    (logz[1:] + logz[:-1]) / 2,
+                    [logz[-1] + (logz[-1] - logz[-2]) / 2],
+                ]
+            )
+            if logz.size > 1
+            else np.array([logz[0] - 0.5, logz[0] + 0.5])
+        )
+        runs = unresolved_runs(az)
+        for start, stop in runs:
+            layers.append(
+                hv.VSpan(float(edges[start]), float(edges[stop])).opts(**_UNRESOLVED_STYLE)
+            )
+        if label and runs:
+            start, stop = max(runs, key=lambda r: r[1] - r[0])
+            frame = beam_frame(az)
+            layers.append(
+                hv.Text(
+                    float(0.5 * (edges[start] + edges[stop])),
+                    float(frame[0] * _MM + 0.92 * (frame[1] - frame[0]) * _MM),
+                    UNRESOLVED_TEXT,
+                    halign="center",
+                ).opts(text_color="#ffffff", text_font_size="9pt")
+            )
+    return hv.Overlay(layers or [hv.VLine(0).opts(alpha=0)])
 
 
 def boundary_overlay(az: AlongZ | None) -> hv.Overlay:
@@ -271,10 +389,41 @@ def boundary_overlay(az: AlongZ | None) -> hv.Overlay:
     return hv.Overlay(layers or [hv.VLine(lo).opts(alpha=0)])
 
 
-def _marker(distance: float | None) -> hv.VLine:
+def marker_position(distance: float | None, z_range: tuple[float, float] | None) -> tuple:
+    """Where the screen marker goes: ``(log10 position, label)``.
+
+    Inside the drawn range the marker sits at the screen distance with no label;
+    beyond it, it is clamped to the nearer edge and labelled with the distance and
+    an arrow that points to where the screen is.
+    """
     if distance is None or not (distance > 0):
-        return hv.VLine(0).opts(alpha=0)
-    return hv.VLine(math.log10(distance)).opts(color="#f5a623", line_width=2, line_dash="dashed")
+        return None, ""
+    at = math.log10(distance)
+    if z_range is None:
+        return at, ""
+    lo, hi = (math.log10(z) for z in z_range)
+    if at > hi:
+        return hi, f"screen at {_length_label(float(f'{distance:.3g}'))} ▸"
+    if at < lo:
+        return lo, f"◂ screen at {_length_label(float(f'{distance:.3g}'))}"
+    return at, ""
+
+
+def _marker(distance: float | None, z_range=None, top: float | None = None) -> hv.Overlay:
+    at, label = marker_position(distance, z_range)
+    if at is None:
+        line = hv.VLine(0).opts(alpha=0)
+    else:
+        line = hv.VLine(at).opts(color="#f5a623", line_width=2, line_dash="dashed")
+    if top is None:
+        return hv.Overlay([line])
+    text = hv.Text(
+        0.0 if at is None else at,
+        top,
+        label,
+        halign="right" if label.endswith("▸") else "left",
+    ).opts(text_color="#f5a623", text_font_size="9pt", text_baseline="top")
+    return hv.Overlay([line, text])
 
 
 def on_axis_view(az: AlongZ | None) -> hv.Curve:
@@ -285,8 +434,17 @@ def on_axis_view(az: AlongZ | None) -> hv.Curve:
     values = np.asarray(az.intensity[:, i], dtype=np.float64)
     peak = float(values.max()) if values.size else 0.0
     floor = peak * 10.0**-DECADES if peak > 0 else 1e-30
-    curve = hv.Curve((np.log10(az.z), np.maximum(values, floor)), kdims=[_LOGZ], vdims=[_AXIS_IRR])
-    return curve.opts(
+    shown = np.maximum(values, floor)
+    # The rows the grid cannot resolve are drawn apart, grey and dashed, under a band.
+    resolved = np.asarray(az.resolved, bool)
+    good = np.where(resolved, shown, np.nan)
+    doubtful = np.where(~resolved, shown, np.nan)
+    logz = np.log10(az.z)
+    curve = hv.Curve((logz, good), kdims=[_LOGZ], vdims=[_AXIS_IRR])
+    grey = hv.Curve((logz, doubtful), kdims=[_LOGZ], vdims=[_AXIS_IRR]).opts(
+        color="#8892a6", line_dash="dashed", logy=True
+    )
+    curve = curve.opts(
         logy=True,
         color="#38d9c6",
         xticks=distance_ticks(float(az.z[0]), float(az.z[-1])),
@@ -295,8 +453,10 @@ def on_axis_view(az: AlongZ | None) -> hv.Curve:
         framewise=True,
         toolbar="above",
         tools=["hover"],
-        title=f"On the axis (x = {az.x[i] * _MM:.3g} mm)",
+        title=f"On the axis (x = {az.x[i] * _MM:.3g} mm)"
+        + (f"; grey dashed: {UNRESOLVED_TEXT}" if not resolved.all() else ""),
     )
+    return curve * grey * unresolved_overlay(az, label=False)
 
 
 # ---------------------------------------------------------------------------- panel
@@ -476,9 +636,18 @@ class AlongZView:
             self._tap.clear()
         self._tap = hv.streams.Tap(source=img, x=None, y=None)
         self._tap.add_subscriber(self._tapped)
-        marker = hv.DynamicMap(lambda data: _marker(data), streams=[self._marker_pipe])
-        self.image_pane.object = img * boundary_overlay(data) * marker
-        self.curve_pane.object = on_axis_view(data) * marker
+        z_range = None if data is None else (float(data.z[0]), float(data.z[-1]))
+        top = None if data is None else float(beam_frame(data)[1] * _MM)
+        marker = hv.DynamicMap(
+            lambda data: _marker(data, z_range, top), streams=[self._marker_pipe]
+        )
+        curve_marker = hv.DynamicMap(
+            lambda data: _marker(data, z_range), streams=[self._marker_pipe]
+        )
+        self.image_pane.object = img * unresolved_overlay(data) * boundary_overlay(data) * marker
+        # No empty plots before the first image: the note says what happens instead.
+        self.image_pane.visible = self.curve_pane.visible = data is not None
+        self.curve_pane.object = on_axis_view(data) * curve_marker
 
     # --------------------------------------------------------------------- hooks
 
@@ -530,8 +699,18 @@ class AlongZView:
             unresolved = int((~az.resolved).sum())
             if unresolved:
                 parts.append(
-                    f"{unresolved} of {az.z.size} distances keep only the frequencies a "
-                    f"{alongz.DEFAULT_MAX_GRID}-sample grid holds"
+                    f'<span class="fb-alongz-unresolved">grey bands: {unresolved} of '
+                    f"{az.z.size} distances are {UNRESOLVED_TEXT} (they keep only the "
+                    f"frequencies a {alongz.DEFAULT_MAX_GRID}-sample grid holds; read "
+                    "those on the screen map instead)</span>"
+                )
+            _at, label = marker_position(
+                self.dash.setup.screen.distance, (float(az.z[0]), float(az.z[-1]))
+            )
+            if label:
+                parts.append(
+                    f"the screen ({_length_label(self.dash.setup.screen.distance)}) lies "
+                    "beyond the drawn range; its marker sits at the edge"
                 )
         parts.append("click the image to move the screen there")
         return '<div class="fb-regime-note">' + " · ".join(parts) + "</div>"
@@ -556,6 +735,8 @@ class AlongZView:
                         f"{b.fresnel_number!r}:{b.z!r}" for b in az.boundaries
                     ),
                     "alongz-fraunhofer": repr(float(az.fraunhofer_distance)),
+                    "alongz-unresolved": str(int((~az.resolved).sum())),
+                    "alongz-frame": ",".join(repr(v) for v in beam_frame(az)),
                 }
             )
         self.dash.state_extra.update(extra)

@@ -24,6 +24,7 @@ import panel as pn
 
 from compute import camera as cam
 from compute.model import Camera, Setup
+from server import wording
 from server.colour_view import TrueColour
 from server.controls import CameraEditor, SpectrumControls
 
@@ -168,6 +169,15 @@ def readings_html(summary: dict, sampling: dict | None, factor: int) -> str:
         ("fb-camera-peak", "Peak", f"{summary['peak_dn']} / {summary['full_scale']} DN"),
         ("fb-camera-electrons", "Mean photoelectrons", f"{mean_e:.4g} e⁻"),
     ]
+    longest = summary.get("longest_exposure")
+    if longest is not None:
+        items.append(
+            (
+                "fb-camera-longest",
+                "Longest exposure without saturation",
+                f"about {wording.number(longest * 1e3, 3)} ms",
+            )
+        )
     if sampling is not None:
         verdict = str(sampling.get("verdict", ""))
         text = _VERDICT_TEXT.get(verdict, verdict)
@@ -256,6 +266,9 @@ class CameraPanel:
         top = cam.full_scale(camera)
         summary = dict(cam.frame_summary(extras, camera))
         summary["mean_electrons"] = float(np.mean(extras["electrons"]))
+        summary["longest_exposure"] = wording.longest_exposure(
+            float(camera.exposure), float(summary["peak_electrons"]), float(camera.full_well)
+        )
         sampling = next((v.to_dict() for v in result.validity if v.key == "camera_sampling"), None)
         self._send((x, y, dn, sat, top), (counts, int(camera.bit_depth)))
         self.readings.object = readings_html(summary, sampling, factor)

@@ -10,6 +10,7 @@ show the committed value again, so that a rejected input changes nothing.
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -17,6 +18,7 @@ import panel as pn
 import param
 
 from compute.model import ELEMENT_TYPES, Camera, Element, Numerics, Screen, Setup, Source
+from server import wording
 
 __all__ = [
     "CAMERA_FIELDS",
@@ -32,6 +34,7 @@ __all__ = [
     "element_summary",
     "format_vertices",
     "parse_vertices",
+    "path_label",
     "to_display",
     "to_si",
 ]
@@ -76,6 +79,12 @@ def _fmt(v: float) -> str:
     return f"{v:.6g}"
 
 
+#: How number boxes show their value: up to six decimals, no trailing zeros.
+NUMBER_FORMAT = "0.[000000]"
+#: Below this distance (m) the distance control also says it in mm or µm.
+SHORT_DISTANCE = 0.1
+
+
 @dataclass(frozen=True)
 class Field:
     """How one parameter is shown: display unit, label and an optional slider range."""
@@ -106,6 +115,7 @@ class QuantityControl:
     def __init__(self, path: str, p: param.Parameter, field: Field, on_change: OnChange):
         self.path = path
         self.unit = field.unit
+        self.name = field.label
         self.integer = isinstance(p, param.Integer)
         self._on_change = on_change
         self._muted = False
@@ -114,30 +124,33 @@ class QuantityControl:
         self.upper = None if hi is None else to_display(hi, self.unit)
         inclusive = getattr(p, "inclusive_bounds", (True, True))
         self.lower_open = lo is not None and not inclusive[0]
-        label = f"{field.label} ({self.unit})" if self.unit else field.label
+        self.upper_open = hi is not None and not inclusive[1]
+        self.label = f"{field.label} ({self.unit})" if self.unit else field.label
         css = ["fb-" + path.replace(".", "-").replace("_", "-")]
         if path.startswith("aperture.elements"):
             css = ["fb-el-" + path.split(".")[-1].replace("_", "-")]
         elif path == "screen.distance":
             css.append("fb-distance")
-        common = {"label": label, "css_classes": css, "sizing_mode": "stretch_width"}
+        common = {"label": self.label, "css_classes": css, "sizing_mode": "stretch_width"}
+        # The widgets get no hard bounds: the browser would clamp a value typed beyond
+        # them and send the bound instead (or nothing), so that a refused value went
+        # unsaid. Every value reaches the dashboard, which refuses it in words.
         if field.soft is not None and not self.integer:
             lo_s, hi_s = field.soft
             self.widget = pn.widgets.EditableFloatSlider(
                 start=lo_s,
                 end=hi_s,
-                fixed_start=self.lower,
-                fixed_end=self.upper,
                 step=field.step or (hi_s - lo_s) / 200.0,
                 value=lo_s,
-                format="0[.]000",
+                format=NUMBER_FORMAT,
                 **common,
             )
             self.widget.param.watch(self._changed, "value_throttled")
+            # A value typed into the slider's box that is refused may arrive as ``value``
+            # alone (not ``value_throttled``): it is said at once all the same.
+            self.widget.param.watch(self._typed, "value")
         elif self.integer:
             self.widget = pn.widgets.IntInput(
-                start=None if self.lower is None else int(self.lower),
-                end=None if self.upper is None else int(self.upper),
                 step=int(field.step or 1),
                 value=int(self.lower or 0),
                 **common,
@@ -145,31 +158,54 @@ class QuantityControl:
             self.widget.param.watch(self._changed, "value")
         else:
             self.widget = pn.widgets.FloatInput(
-                start=self.lower,
-                end=self.upper,
                 step=field.step or 0.1,
                 value=self.lower if self.lower is not None else 0.0,
-                format="0[.]00000",
+                format=NUMBER_FORMAT,
                 **common,
             )
             self.widget.param.watch(self._changed, "value")
+        self._shown: float | None = None
+        self._refused: tuple[float, float] | None = None  # (value, second it came)
 
-    def check(self, value: float) -> str | None:
-        """A plain message when ``value`` (display units) is outside the model bounds."""
-        if value is None or (isinstance(value, float) and not math.isfinite(value)):
-            return "a number is needed"
-        unit = f" {self.unit}" if self.unit else ""
-        if self.lower is not None and (
-            value < self.lower or (self.lower_open and value <= self.lower)
-        ):
-            sign = ">" if self.lower_open else "≥"
-            return f"{_fmt(value)}{unit} is too small; it must be {sign} {_fmt(self.lower)}"
-        if self.upper is not None and value > self.upper:
-            return f"{_fmt(value)}{unit} is too large; it must be ≤ {_fmt(self.upper)}"
-        return None
+    def check(self, value: float | None, current: float | None = None) -> str | None:
+        """Why ``value`` (display units) is refused, in the control's words; None when fine.
+
+        ``current`` (display units) is the value the control keeps, said at the end.
+        """
+        return wording.refusal(
+            self.name,
+            self.unit,
+            value,
+            self.lower,
+            self.upper,
+            lower_open=self.lower_open,
+            upper_open=self.upper_open,
+            current=current,
+            integer=self.integer,
+        )
+
+    @property
+    def shown(self) -> float | None:
+        """The last valid value the control showed, in display units."""
+        return self._shown
+
+    def _typed(self, event: param.parameterized.Event) -> None:
+        if self._muted or event.new is None:
+            return
+        if self.check(float(event.new)) is not None:
+            self._changed(event)
 
     def _changed(self, event: param.parameterized.Event) -> None:
-        if self._muted or event.new is None:
+        if self._muted:
+            return
+        now = time.monotonic()
+        last = self._refused
+        if event.new is not None and last and last[0] == event.new and now - last[1] < 0.5:
+            return  # the same refused value again at once (the slider reports it twice)
+        bad = event.new is not None and self.check(float(event.new)) is not None
+        self._refused = (event.new, now) if bad else None
+        if event.new is None:  # an emptied box: refused like any value that is no number
+            self._on_change(self.path, None)
             return
         if self.integer:
             self._on_change(self.path, int(event.new))
@@ -181,6 +217,7 @@ class QuantityControl:
         if value_si is None:
             return
         shown = int(value_si) if self.integer else to_display(float(value_si), self.unit)
+        self._shown = shown
         self._muted = True
         try:
             w = self.widget
@@ -195,6 +232,32 @@ class QuantityControl:
                     end = shown + 0.5 * (shown - w.start)
                     w.end = end if self.upper is None else min(self.upper, end)
             w.value = shown
+            if self.path == "screen.distance":
+                # Short distances also in mm (or µm), with their significant digits.
+                extra = ""
+                if 0 < float(value_si) < SHORT_DISTANCE:
+                    extra = f" = {wording.length(float(value_si))}"
+                w.label = self.label + extra
+        finally:
+            self._muted = False
+
+    def restore(self) -> None:
+        """Show the last valid value again after a refusal (and the slider's own range)."""
+        w = self.widget
+        self._muted = True
+        try:
+            if isinstance(w, pn.widgets.EditableFloatSlider):
+                # The browser widened the slider to the refused value; put its range back.
+                start, end = w.start, w.end
+                if self.lower is not None:
+                    start = max(start, self.lower)
+                if self.upper is not None:
+                    end = min(end, self.upper)
+                w.param.update(start=start, end=end)
+                w.param.trigger("start", "end")
+            if self._shown is not None:
+                w.value = self._shown
+                w.param.trigger("value")
         finally:
             self._muted = False
 
@@ -664,14 +727,17 @@ class CameraEditor:
         )
 
     def check(self, path: str, value_si: object) -> str | None:
-        """A plain message naming ``path`` when ``value_si`` is outside the model's bounds."""
+        """A plain message naming the setting when ``value_si`` is outside the model's bounds."""
         name = path.removeprefix("camera.")
         c = self.quantities.get(name)
-        if c is None or isinstance(value_si, bool) or not isinstance(value_si, (int, float)):
+        if c is None or isinstance(value_si, bool):
+            return None
+        if value_si is None:
+            return c.check(None, c.shown)
+        if not isinstance(value_si, (int, float)):
             return None
         shown = value_si if c.integer else to_display(float(value_si), c.unit)
-        problem = c.check(shown)
-        return None if problem is None else f"{path}: {problem}"
+        return c.check(shown, c.shown)
 
     def refresh(self, setup: Setup) -> None:
         """Show the camera of ``setup`` (or its absence), reporting no change."""
@@ -686,3 +752,48 @@ class CameraEditor:
                 self.shot_noise.value = bool(cam.shot_noise)
         finally:
             self._muted = False
+
+
+# ------------------------------------------------------------- labels of snapshot paths
+
+_PATH_LABELS_EXTRA = {
+    "source.kind": "Source",
+    "source.spectrum": "Spectrum",
+    "screen.distance": "Screen distance",
+    "numerics.grid": "Aperture grid",
+    "numerics.method": "Method",
+    "numerics.precision": "Precision",
+    "aperture.background": "Background",
+    "aperture.elements": "the aperture's elements",
+    "camera.shot_noise": "Photon shot noise",
+}
+
+
+def path_label(path: str) -> str:
+    """The label a person sees for a snapshot path; the path itself when it has none.
+
+    ``screen.samples`` -> ``Pixels across``; ``aperture.elements[1].width`` ->
+    ``element 2 width``.
+    """
+    m = wording.PATH.fullmatch(path.strip())
+    if m is None:
+        return path
+    section, rest, index, name = m.groups()
+    if index is not None:
+        el = f"element {int(index) + 1}"
+        if name is None:
+            return el
+        fields = [f for fs in ELEMENT_FIELDS.values() for f in fs] + _COMMON_FIELDS
+        label = next((f.label for f in fields if f.name == name), name.replace("_", " "))
+        return f"{el} {label[0].lower()}{label[1:]}"
+    if path in _PATH_LABELS_EXTRA:
+        return _PATH_LABELS_EXTRA[path]
+    sections = {
+        "source": SOURCE_FIELDS + SPECTRUM_FIELDS,
+        "screen": SCREEN_FIELDS,
+        "camera": CAMERA_FIELDS,
+    }
+    for f in sections.get(section, []):
+        if f.name == rest:
+            return f.label
+    return path

@@ -47,6 +47,7 @@ from server import (
     sweep_panel,
     urlstate,
     views,
+    wording,
 )
 from server.controls import SHAPE_LABELS, ElementEditor, SetupControls, to_display
 
@@ -61,6 +62,8 @@ SAFETY_TEXT = (
     "applicable laser-safety standard and your local laser safety officer."
 )
 _ASSETS = Path(__file__).resolve().parent / "assets"
+#: The first tab under the map: the cuts, the aperture and the validity report.
+SCREEN_TAB_TITLE = "Cuts, aperture, validity"
 _PATH = re.compile(r"^(source|screen|numerics|aperture)(?:\.elements\[(\d+)\])?\.(\w+)$")
 
 # Computations run on the server-wide queue (server.sharing.COMPUTE_QUEUE): bounded
@@ -115,13 +118,18 @@ def _read_snapshot(data: bytes | str, name: str) -> tuple[Setup, bool, str]:
 
 
 def failure_message(exc: BaseException) -> str:
-    """A plain sentence for a failed computation (no traceback for the user)."""
+    """A plain sentence for a failed computation (no traceback for the user).
+
+    Settings are named by the labels the user sees, not by their snapshot paths.
+    """
     if isinstance(exc, SetupError):
-        return str(exc)
+        return wording.plain(str(exc), controls.path_label)
     if isinstance(exc, snapshot.SnapshotError):
-        return "; ".join(f"{p}: {m}" if p else m for p, m in exc.errors)
+        return wording.plain(
+            "; ".join(f"{p}: {m}" if p else m for p, m in exc.errors), controls.path_label
+        )
     if isinstance(exc, MemoryError):
-        return "the computation ran out of memory; lower the screen pixels or the grid"
+        return "the computation ran out of memory; lower “Pixels across” or the aperture grid"
     return f"internal error while computing ({type(exc).__name__}: {exc})"
 
 
@@ -202,7 +210,17 @@ class Dashboard(pn.viewable.Viewer):
         self._reframe = True
         self._applying_view = False
         self._url_warned = False
+        # The preset the setup came from (its title and physics hash), and whether the
+        # user has changed it since; the failure that the problem bar shows.
+        self._preset_hashes: dict[str, str] = {}
+        self.preset_loaded: str | None = None
+        self.preset_edited = False
+        self._own_meta = False
+        self._failure_said = ""
+        self._dismissed: set[str] = set()
+        self._fix: wording.Fix | None = None
         self._build_widgets()
+        self._match_preset(initial)
         self._apply_view(initial.view)
         self._structure: tuple = ()
         self._refresh_controls()
@@ -232,21 +250,28 @@ class Dashboard(pn.viewable.Viewer):
 
     # ------------------------------------------------------------------- editing
 
-    def _unit_of(self, path: str) -> str:
+    def _range_message(self, path: str, p: param.Number, value: float | None) -> str:
+        """Why ``value`` (SI) is refused, in the words and unit of the control that edits it."""
         c = self._controls_by_path.get(path)
-        return c.unit if c is not None else ""
-
-    def _range_message(self, path: str, p: param.Number, value: float) -> str:
-        unit = self._unit_of(path)
-        lo, hi = p.bounds
-        show = (lambda v: to_display(v, unit)) if unit else (lambda v: v)
-        si_unit = "" if unit else (p.metadata or {}).get("unit", "")
-        u = unit or si_unit
-        low = "above" if not p.inclusive_bounds[0] else "at least"
+        if c is not None:
+            shown = None if value is None else (value if c.integer else to_display(value, c.unit))
+            text = c.check(shown, c.shown)
+            if text is not None:
+                return text
+        lo, hi = p.bounds or (None, None)
+        unit = (p.metadata or {}).get("unit", "")
         return (
-            f"{path}: {show(value):.6g} {u} is outside the allowed range "
-            f"({low} {show(lo):.6g} {u}, at most {show(hi):.6g} {u})"
-        ).replace("  ", " ")
+            wording.refusal(
+                controls.path_label(path),
+                unit,
+                value,
+                lo,
+                hi,
+                lower_open=not p.inclusive_bounds[0],
+                upper_open=not p.inclusive_bounds[1],
+            )
+            or f"{controls.path_label(path)}: {value} is refused"
+        )
 
     def _resolve(self, setup: Setup, path: str) -> tuple[param.Parameterized, str]:
         m = _PATH.match(path)
@@ -291,13 +316,15 @@ class Dashboard(pn.viewable.Viewer):
             obj, name = self._resolve(candidate, path)
             value = self._convert(path, name, value)
             p = obj.param[name]
+            if isinstance(p, param.Number):
+                missing = value is None and not p.allow_None
+                if missing or (isinstance(value, float) and not math.isfinite(value)):
+                    raise ValueError(self._range_message(path, p, None))
             if (
                 isinstance(p, param.Number)
                 and isinstance(value, (int, float))
                 and not isinstance(value, bool)
             ):
-                if not math.isfinite(value):
-                    raise ValueError(f"{path}: expected a finite number")
                 lo, hi = p.bounds or (None, None)
                 low_ok = lo is None or (value >= lo if p.inclusive_bounds[0] else value > lo)
                 high_ok = hi is None or (value <= hi if p.inclusive_bounds[1] else value < hi)
@@ -311,14 +338,18 @@ class Dashboard(pn.viewable.Viewer):
             if problems:
                 raise ValueError("; ".join(f"{pp}: {mm}" for pp, mm in problems))
         except ValueError as exc:
-            self._reject(str(exc))
+            self._reject(str(exc), path=path)
             return False
         self._commit(candidate)
         return True
 
-    def _reject(self, text: str) -> None:
-        self.notify("error", text)
+    def _reject(self, text: str, *, path: str | None = None) -> None:
+        """Say why a change is refused (in the page's words) and show the committed values."""
+        self.notify("error", wording.plain(text, controls.path_label))
         self._refresh_controls()
+        c = self._controls_by_path.get(path) if path else None
+        if c is not None:
+            c.restore()
 
     def _edit(self, change: Callable[[Setup], None], *, select: int | None = None) -> bool:
         """Apply ``change`` to a copy of the setup; commit it when the copy checks out."""
@@ -395,17 +426,127 @@ class Dashboard(pn.viewable.Viewer):
 
         return self._edit(change, select=target)
 
-    def load(self, setup: Setup, *, origin: str = "setup") -> None:
+    def load(self, setup: Setup, *, origin: str = "setup", preset: str | None = None) -> None:
         """Replace the whole setup (a preset, an import, a link); the view follows it."""
         if self._read_only():  # follow mode hook
             return
         self.selected = 0
         self._reframe = True  # the map opens on the new window
-        self._commit(clone(setup), view=setup.view)
+        self._own_meta = False
+        self.preset_loaded = None  # until the new setup is in place
+        # A display setting the snapshot leaves out takes its default, not the last one's.
+        view = {"scale": self.param["scale"].default, "cmap": self.param["cmap"].default}
+        self._commit(clone(setup), view=view | dict(setup.view or {}))
+        self._match_preset(self.setup, preset)
         self.notify("info", f"Loaded {origin}.")
+
+    # ------------------------------------------------------------------ presets
+
+    def _preset_hash(self, title: str) -> str | None:
+        if title not in self._preset_hashes:
+            try:
+                self._preset_hashes[title] = snapshot.physics_hash(
+                    snapshot.load(self._presets[title])
+                )
+            except (snapshot.SnapshotError, OSError, KeyError):
+                return None
+        return self._preset_hashes[title]
+
+    def _match_preset(self, setup: Setup, title: str | None = None) -> None:
+        """Note which preset ``setup`` is (by the title it carries, or ``title``), if any."""
+        title = title or str((setup.meta or {}).get("title") or "")
+        self.preset_loaded = title if title in self._presets else None
+        if self.preset_loaded is not None:
+            self.preset_edited = self._preset_hash(title) != snapshot.physics_hash(setup)
+        else:
+            self.preset_edited = False
+        self._show_preset()
+
+    def _follow_edits(self) -> None:
+        """After a committed change: is the setup still the preset it was loaded from?"""
+        if self.preset_loaded is None:
+            return
+        edited = self._preset_hash(self.preset_loaded) != snapshot.physics_hash(self.setup)
+        if edited != self.preset_edited:
+            self.preset_edited = edited
+            self._show_preset()
+
+    def _picker_options(self) -> dict[str, str]:
+        opts = {t: t for t in self._presets}
+        if self.preset_loaded is None:
+            return {"(own setup: choose a preset)": ""} | opts
+        if self.preset_edited:
+            return {f"{self.preset_loaded} (edited)": ""} | opts
+        return opts
+
+    def _export_meta(self) -> tuple[str, str]:
+        """The title and note an export would carry, unless the user wrote their own."""
+        meta = self.setup.meta or {}
+        title, note = str(meta.get("title", "")), str(meta.get("note", ""))
+        if self.preset_loaded is not None and self.preset_edited:
+            title = f"edited from: {self.preset_loaded}"
+            note = (
+                f"Changed after loading the preset “{self.preset_loaded}”; the preset's "
+                "note does not describe this setup."
+            )
+        return title, note
+
+    def _show_preset(self) -> None:
+        """The chooser, the note on the page and the export's title and note."""
+        if not hasattr(self, "preset_picker"):
+            return
+        self._picker_muted = True
+        try:
+            self.preset_picker.options = self._picker_options()
+            value = "" if self.preset_loaded is None or self.preset_edited else self.preset_loaded
+            self.preset_picker.value = value
+        finally:
+            self._picker_muted = False
+        meta = self.setup.meta or {}
+        if self.preset_loaded is not None:
+            note = str(meta.get("note", "")) if not self.preset_edited else ""
+            if self.preset_edited:
+                original = self._preset_note(self.preset_loaded)
+                text = (
+                    f'<span class="fb-preset-edited">edited from:</span> '
+                    f"<b>{html.escape(self.preset_loaded)}</b>"
+                    + (
+                        f" · <span class='fb-note'>{html.escape(original)}</span>"
+                        if original
+                        else ""
+                    )
+                )
+            else:
+                text = f"<b>{html.escape(self.preset_loaded)}</b>" + (
+                    f" · {html.escape(note)}" if note else ""
+                )
+            self.preset_note.object = f'<div class="fb-preset-note-text">{text}</div>'
+            self.preset_note.visible = True
+        else:
+            self.preset_note.object = ""
+            self.preset_note.visible = False
+        if not self._own_meta:
+            title, note = self._export_meta()
+            self._meta_muted = True
+            try:
+                self.title_input.value = title
+                self.note_input.value = note
+            finally:
+                self._meta_muted = False
+
+    def _preset_note(self, title: str) -> str:
+        try:
+            return str(snapshot.load(self._presets[title]).meta.get("note", ""))
+        except (snapshot.SnapshotError, OSError, KeyError):
+            return ""
+
+    def _meta_typed(self, _event: param.parameterized.Event) -> None:
+        if not getattr(self, "_meta_muted", False):
+            self._own_meta = True
 
     def _commit(self, candidate: Setup, *, view: dict | None = None) -> None:
         self.setup = candidate
+        self._follow_edits()
         if view is not None:
             self._apply_view(view)
         if self._threaded:
@@ -438,6 +579,12 @@ class Dashboard(pn.viewable.Viewer):
         """The current setup and view as version-1 snapshot JSON text."""
         s = clone(self.setup)
         meta = dict(s.meta)
+        title, note = self.title_input.value.strip(), self.note_input.value.strip()
+        for key, value in (("title", title), ("note", note)):
+            if value:
+                meta[key] = value
+            else:
+                meta.pop(key, None)
         meta["created"] = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
         meta["app_version"] = compute.__version__
         s.meta = meta
@@ -653,12 +800,11 @@ class Dashboard(pn.viewable.Viewer):
             if not isinstance(exc, (SetupError, snapshot.SnapshotError, MemoryError)):
                 log.error("computation failed", exc_info=exc)
             self.last_error = failure_message(exc)
-            self.notify(
-                "error", f"Computation failed, the last good result stays: {self.last_error}"
-            )
+            self._show_failure(exc)
         else:
             result, preview, aperture_key = fut.result()
             self.last_error = ""
+            self._show_failure(None)
             self._result_setup = setup
             self._preview = preview
             self._shown_aperture = aperture_key
@@ -680,6 +826,52 @@ class Dashboard(pn.viewable.Viewer):
         if idle:
             self.busy = False
             self._set_busy_view(False)
+
+    def _show_failure(self, exc: BaseException | None) -> None:
+        """The problem bar: the failure in plain words and its fix, or nothing.
+
+        A failure is announced once: the same failure after a later edit keeps the
+        bar up but raises no new notification, and one the user dismissed or fixed
+        is not raised again until another one comes.
+        """
+        if exc is None:
+            self.problem_bar.visible = False
+            self._fix = None
+            self._failure_said = ""
+            return
+        text = self.last_error
+        path = getattr(exc, "path", "") if isinstance(exc, SetupError) else ""
+        raw = str(exc) if isinstance(exc, SetupError) else ""
+        self._fix = wording.fix_for(path, raw, int(self.setup.numerics.grid))
+        if self._fix is None and isinstance(exc, MemoryError) and self.setup.numerics.grid:
+            self._fix = wording.Fix("Set grid to automatic", "numerics.grid", 0)
+        self.fix_button.name = self._fix.label if self._fix else ""
+        self.fix_button.visible = self._fix is not None
+        self.problem_text.object = (
+            f'<div class="fb-problem-text">The last computation failed, the last good '
+            f"result stays: {html.escape(text)}</div>"
+        )
+        # The same failure with other numbers in it (a size, a sample count) is the same.
+        sig = f"{path}|" + re.sub(r"\d[\d.,×e+-]*", "#", text)
+        if sig == self._failure_said or sig in self._dismissed:
+            return  # said once already; the bar (if not dismissed) still shows it
+        self._failure_said = sig
+        self.problem_bar.visible = True
+        self.notify("error", f"Computation failed, the last good result stays: {text}")
+
+    def _apply_fix(self) -> None:
+        """The fix button: change the setting it names (through the usual checks)."""
+        fix = getattr(self, "_fix", None)
+        if fix is None:
+            return
+        self.problem_bar.visible = False
+        self.set_value(fix.path, fix.value)
+
+    def _dismiss_failure(self) -> None:
+        """The dismiss button: hide the bar; this failure is not raised again."""
+        self.problem_bar.visible = False
+        if self._failure_said:
+            self._dismissed.add(self._failure_said)
 
     def _cut_inside(self, result: Any) -> bool:
         return bool(
@@ -707,6 +899,49 @@ class Dashboard(pn.viewable.Viewer):
             sizing_mode="stretch_width",
         )
         self.preset_picker.param.watch(self._preset_chosen, "value")
+        self.preset_note = _html(
+            "", css_classes=["fb-preset-note"], sizing_mode="stretch_width", visible=False
+        )
+        self.title_input = pn.widgets.TextInput(
+            name="Title (exported)", css_classes=["fb-meta-title"], sizing_mode="stretch_width"
+        )
+        self.note_input = pn.widgets.TextAreaInput(
+            name="Note (exported)",
+            css_classes=["fb-meta-note"],
+            sizing_mode="stretch_width",
+            height=70,
+        )
+        self.title_input.param.watch(self._meta_typed, "value")
+        self.reading_hint_text = _html("", sizing_mode="stretch_width")
+        widen = pn.widgets.Button(
+            name="Widen the window ×2", variant="outline", css_classes=["fb-widen"], width=180
+        )
+        widen.on_click(lambda _e: self.widen_window())
+        self.reading_hint = pn.Column(
+            self.reading_hint_text,
+            widen,
+            visible=False,
+            sizing_mode="stretch_width",
+            css_classes=["fb-reading-hint"],
+        )
+        self.problem_text = _html("", sizing_mode="stretch_width", css_classes=["fb-problem"])
+        self.fix_button = pn.widgets.Button(
+            name="", color="warning", css_classes=["fb-fix"], visible=False, width=190
+        )
+        self.fix_button.on_click(lambda _e: self._apply_fix())
+        dismiss = pn.widgets.Button(
+            name="Dismiss", variant="outline", css_classes=["fb-dismiss"], width=90
+        )
+        dismiss.on_click(lambda _e: self._dismiss_failure())
+        self.problem_bar = pn.Row(
+            self.problem_text,
+            self.fix_button,
+            dismiss,
+            visible=False,
+            sizing_mode="stretch_width",
+            css_classes=["fb-problem-bar"],
+        )
+        self.note_input.param.watch(self._meta_typed, "value")
         self.export_button = pn.widgets.FileDownload(
             callback=lambda: io.StringIO(self.export_snapshot()),
             filename="fringebench-setup.json",
@@ -793,8 +1028,22 @@ class Dashboard(pn.viewable.Viewer):
         # Follow mode hook: server.sharing puts the share controls in this row.
         self.share_bar = pn.Row(css_classes=["fb-share-bar"], margin=(4, 10))
         # Slots of the extension panels (see server/*_view.py, *_panel.py).
+        self.screen_tab = pn.Column(
+            pn.Row(self.cut_x_pane, self.cut_y_pane, sizing_mode="stretch_width"),
+            pn.Row(
+                self.aperture_pane,
+                self.phase_pane,
+                sizing_mode="stretch_width",
+            ),
+            self.validity_pane,
+            sizing_mode="stretch_width",
+            css_classes=["fb-screen-tab"],
+        )
         self.explore_tabs = pn.Tabs(
-            sizing_mode="stretch_width", css_classes=["fb-explore"], stylesheets=[_TABS_CSS]
+            (SCREEN_TAB_TITLE, self.screen_tab),
+            sizing_mode="stretch_width",
+            css_classes=["fb-explore"],
+            stylesheets=[_TABS_CSS],
         )
         self.camera_slot = pn.Column(visible=False, css_classes=["fb-camera-slot"])
         self.extra_source_controls = pn.Column(sizing_mode="stretch_width")
@@ -871,6 +1120,8 @@ class Dashboard(pn.viewable.Viewer):
         self._refresh_controls()
 
     def _preset_chosen(self, event: param.parameterized.Event) -> None:
+        if getattr(self, "_picker_muted", False):
+            return
         title = event.new
         path = self._presets.get(title) if title else None
         if path is None:  # only titles the server offered are accepted
@@ -880,7 +1131,7 @@ class Dashboard(pn.viewable.Viewer):
         except snapshot.SnapshotError as exc:
             self.notify("error", f"preset {title} could not be read: {exc}")
             return
-        self.load(setup, origin=f"preset “{title}”")
+        self.load(setup, origin=f"preset “{title}”", preset=title)
 
     def _file_imported(self, event: param.parameterized.Event) -> None:
         if event.new is None:
@@ -953,6 +1204,7 @@ class Dashboard(pn.viewable.Viewer):
             card = views.numbers_card(numbers, meta, cut_label=self._closed.label)
             if card != self.numbers_pane.object:
                 self.numbers_pane.object = card
+            self._show_reading_hint(numbers)
             validity = views.validity_card([v.to_dict() for v in r.validity])
             if validity != self.validity_pane.object:
                 self.validity_pane.object = validity
@@ -962,6 +1214,23 @@ class Dashboard(pn.viewable.Viewer):
             self.verdict_banner.visible = bool(banner)
             self._numbers_key = r.key
             self._update_state()
+
+    def _show_reading_hint(self, numbers: dict) -> None:
+        """Say which readings the window cannot give, with a button that widens it."""
+        missing = wording.missing_readings(numbers)
+        self.reading_hint.visible = bool(missing)
+        if missing:
+            text = "; ".join(missing).capitalize() + "."
+            self.reading_hint_text.object = f'<div class="fb-hint">{html.escape(text)}</div>'
+
+    def widen_window(self, factor: float = 2.0) -> bool:
+        """Make the screen window ``factor`` times wider and taller (the hint's button)."""
+
+        def change(s: Setup) -> None:
+            s.screen.width = float(f"{s.screen.width * factor:.12g}")
+            s.screen.height = float(f"{s.screen.height * factor:.12g}")
+
+        return self._edit(change)
 
     def _send_aperture(self, preview: tuple) -> None:
         """Show a new aperture preview, updating the plots in place once they exist."""
@@ -1192,6 +1461,8 @@ class Dashboard(pn.viewable.Viewer):
         snapshot_card = self._card(
             "Preset and snapshot",
             self.preset_picker,
+            self.title_input,
+            self.note_input,
             self.export_button,
             pn.pane.Markdown("Import a snapshot (.json):", margin=(0, 5)),
             self.import_input,
@@ -1211,7 +1482,7 @@ class Dashboard(pn.viewable.Viewer):
             self._card("Screen", self.controls.screen_panel()),
             self._card("Camera", self.camera_controls, collapsed=True, css="fb-camera-card"),
             self._card("Numerics", self.controls.numerics_panel(), collapsed=True),
-            width=380,
+            width=340,
             css_classes=["fb-sidebar"],
         )
         toolbar = pn.Row(
@@ -1225,20 +1496,17 @@ class Dashboard(pn.viewable.Viewer):
         main = pn.Column(
             toolbar,
             self.verdict_banner,
+            self.problem_bar,
+            self.preset_note,
             pn.Row(
                 self.map_pane,
                 self.camera_slot,
-                pn.Column(self.numbers_pane, width=330),
+                pn.Column(self.numbers_pane, self.reading_hint, width=320),
                 sizing_mode="stretch_width",
             ),
             self.overlay_note,
-            pn.Row(self.cut_x_pane, self.cut_y_pane, sizing_mode="stretch_width"),
-            pn.Row(
-                self.aperture_pane,
-                self.phase_pane,
-                pn.Column(self.validity_pane, width=460),
-                sizing_mode="stretch_width",
-            ),
+            # The cuts, the aperture and the validity report share the tab strip with
+            # the regime tabs, so that those are one click away right under the map.
             self.explore_tabs,
             self.state_pane,
             sizing_mode="stretch_width",

@@ -197,6 +197,12 @@ METHOD_COLOURS = {
 _PX = hv.Dimension("sweep_x")
 _PY = hv.Dimension("sweep_y")
 _PM = hv.Dimension("sweep_method", label="method")
+_PV = hv.Dimension("sweep_validity", label="validity")
+#: Disabled buttons look disabled: faded, and no pointer (Bokeh's own look barely changes).
+DISABLED_CSS = (
+    ":host .bk-btn:disabled, :host .bk-btn[disabled], :host .bk-btn.bk-disabled "
+    "{ opacity: 0.35; cursor: not-allowed; filter: grayscale(0.8); }"
+)
 
 
 def _column(rows: list[dict | None], column: str, factor: float) -> np.ndarray:
@@ -226,17 +232,58 @@ def _edges(values: np.ndarray, log: bool) -> np.ndarray:
     return 10.0**e if log else e
 
 
+#: How points are marked whose validity report is not all "ok" (our own marks).
+VALIDITY_MARKS = {
+    "marginal": {"marker": "circle", "line_color": "#ffd56b", "label": "validity marginal"},
+    "invalid": {"marker": "x", "line_color": "#ff3b3b", "label": "validity: does not hold"},
+}
+
+
+def _validity_of(r: dict | None) -> str:
+    return "" if r is None else str(r.get("validity") or "")
+
+
+def _validity_marks(xs, ys, verdicts: list[str], kdims) -> list[Any]:
+    """Rings (marginal) and crosses (invalid) over the points whose report says so."""
+    layers = []
+    for verdict, style in VALIDITY_MARKS.items():
+        keep = [k for k, v in enumerate(verdicts) if v == verdict]
+        if not keep:
+            continue
+        data = {
+            kdims[0].name: np.asarray(xs, dtype=np.float64)[keep],
+            kdims[1].name: np.asarray(ys, dtype=np.float64)[keep],
+            "sweep_validity": [verdict] * len(keep),
+        }
+        layers.append(
+            hv.Scatter(data, kdims=kdims[:1], vdims=[kdims[1], _PV], label=style["label"]).opts(
+                marker=style["marker"],
+                size=15,
+                fill_alpha=0.0,
+                line_color=style["line_color"],
+                line_width=2,
+                color=style["line_color"],
+            )
+        )
+    return layers
+
+
 def sweep_view(
     axes: list[tuple[Sweepable, list[float] | list[int], bool]],
     rows: list[dict | None],
     metric: str,
+    *,
+    logy: bool = False,
 ) -> hv.Element | hv.Overlay:
     """The plot of a sweep: metric against the setting, or a map over two settings.
 
     ``axes`` holds, per varied setting, what it is, its SI values and whether the
     range is logarithmic; ``rows[k]`` is the row of grid point k (None while not
     computed). One setting: a line through the points, the points coloured by the
-    method; two: a map of the metric (of the method's number for ``method``).
+    method, a ring round each point whose validity report is marginal and a cross
+    on each where an approximation does not hold, and a logarithmic metric axis when
+    ``logy`` (not for ``method``); two: a map of the metric (of the method's number
+    for ``method``), with the same crosses and rings on its cells.
     """
     m = METRICS[metric]
     ylabel = f"{m.label} ({m.unit})" if m.unit else m.label
@@ -266,7 +313,8 @@ def sweep_view(
             line = hv.Curve((xs[keep], yv[keep]), kdims=[_PX], vdims=[_PY]).opts(
                 color="#8892a6", line_width=1
             )
-        points = hv.Scatter(data, kdims=[_PX], vdims=[_PY, _PM]).opts(
+        data["sweep_validity"] = [_validity_of(rows[k]) for k in keep]
+        points = hv.Scatter(data, kdims=[_PX], vdims=[_PY, _PM, _PV]).opts(
             color="sweep_method",
             cmap=METHOD_COLOURS,
             size=7,
@@ -274,13 +322,21 @@ def sweep_view(
             legend_position="top_right",
             tools=["hover"],
         )
-        return (
-            (line * points)
-            .opts(
-                hv.opts.Curve(logx=log_x, xlabel=xlabel, ylabel=ylabel),
-                hv.opts.Scatter(logx=log_x, xlabel=xlabel, ylabel=ylabel),
+        logy = logy and metric != "method"
+        layers = [line, points]
+        if metric != "method":
+            layers += _validity_marks(
+                data["sweep_x"], data["sweep_y"], data["sweep_validity"], [_PX, _PY]
             )
-            .opts(responsive=True, height=360, title=f"{m.label} against {first.label}")
+        overlay = hv.Overlay(layers)
+        return overlay.opts(
+            hv.opts.Curve(logx=log_x, logy=logy, xlabel=xlabel, ylabel=ylabel),
+            hv.opts.Scatter(logx=log_x, logy=logy, xlabel=xlabel, ylabel=ylabel),
+        ).opts(
+            responsive=True,
+            height=360,
+            legend_position="top_right",
+            title=f"{m.label} against {first.label}",
         )
     second, values2, log_y = axes[1]
     yunit = second.unit
@@ -294,12 +350,16 @@ def sweep_view(
         z = _column(rows, metric, m.factor)
         clabel = ylabel
     grid = z.reshape(n1, n2).T  # rows: the second setting, columns: the first
+    verdicts = [_validity_of(r) for r in rows]
+    cx = np.repeat(xs, n2)
+    cy = np.tile(ys2, n1)
+    marks = _validity_marks(cx, cy, verdicts, [_PX, hv.Dimension("sweep_x2")])
     mesh = hv.QuadMesh(
         (_edges(xs, log_x), _edges(ys2, log_y), grid),
         kdims=[_PX, hv.Dimension("sweep_x2")],
         vdims=[hv.Dimension("sweep_z", label=clabel)],
     )
-    return mesh.opts(
+    mesh = mesh.opts(
         cmap="viridis",
         colorbar=True,
         logx=log_x,
@@ -311,6 +371,11 @@ def sweep_view(
         responsive=True,
         height=360,
         title=f"{m.label} over {first.label} and {second.label}",
+    )
+    return (
+        hv.Overlay([mesh, *marks])
+        .opts(hv.opts.Scatter(logx=log_x, logy=log_y))
+        .opts(responsive=True, height=360)
     )
 
 
@@ -403,7 +468,11 @@ class SweepPanel:
             width=220,
         )
         self.run_button = pn.widgets.Button(
-            label="Run", color="primary", css_classes=["fb-sweep-run"], width=90
+            label="Run",
+            color="primary",
+            css_classes=["fb-sweep-run"],
+            width=90,
+            stylesheets=[DISABLED_CSS],
         )
         self.cancel_button = pn.widgets.Button(
             label="Cancel",
@@ -411,6 +480,10 @@ class SweepPanel:
             css_classes=["fb-sweep-cancel"],
             width=90,
             disabled=True,
+            stylesheets=[DISABLED_CSS],
+        )
+        self.logy = pn.widgets.Checkbox(
+            name="log y", value=False, css_classes=["fb-sweep-logy"], width=70
         )
         self.progress = pn.indicators.Progress(
             value=0,
@@ -429,22 +502,33 @@ class SweepPanel:
             css_classes=["fb-sweep-csv"],
             width=150,
             disabled=True,
+            stylesheets=[DISABLED_CSS],
         )
+        # No empty plot before the first sweep: a line that says what to do instead.
         self.plot_pane = pn.pane.HoloViews(
-            self._plot(None), sizing_mode="stretch_width", css_classes=["fb-sweep-plot"]
+            self._plot(None),
+            sizing_mode="stretch_width",
+            css_classes=["fb-sweep-plot"],
+            visible=False,
         )
         self.run_button.on_click(lambda _e: self.run())
         self.cancel_button.on_click(lambda _e: self.cancel())
         self.axis1.path.param.watch(lambda e: self._path_picked(self.axis1, e.new), "value")
         self.axis2.path.param.watch(lambda e: self._path_picked(self.axis2, e.new), "value")
         self.metric.param.watch(lambda _e: self._redraw(), "value")
+        self.logy.param.watch(lambda _e: self._redraw(), "value")
         self.panel = pn.Column(
-            pn.Row(self.axis1.panel, self.axis2.panel, sizing_mode="stretch_width"),
-            pn.Row(
+            # One setting under the other: side by side they do not fit at 1280 px.
+            self.axis1.panel,
+            self.axis2.panel,
+            pn.FlexBox(
                 self.metric,
+                self.logy,
                 self.run_button,
                 self.cancel_button,
                 self.download,
+                flex_wrap="wrap",
+                align_items="flex-end",
                 sizing_mode="stretch_width",
             ),
             self.progress,
@@ -680,7 +764,7 @@ class SweepPanel:
                 responsive=True, height=360, title="No sweep yet"
             )
         axes, rows, metric = data
-        return sweep_view(axes, rows, metric)
+        return sweep_view(axes, rows, metric, logy=self.logy.value)
 
     def _redraw(self) -> None:
         with self._lock:
@@ -688,6 +772,7 @@ class SweepPanel:
                 return
             data = (list(self.axes), list(self.rows), self.metric.value)
         self.plot_pane.object = self._plot(data)  # a new plot: its kind may change
+        self.plot_pane.visible = True
 
     def _csv(self) -> io.StringIO:
         with self._lock:
@@ -710,6 +795,9 @@ class SweepPanel:
             self.progress.max = max(1, self.total)
             self.progress.value = self.done
         cls = "fb-regime-error" if error else "fb-regime-note"
-        self.note.object = f'<div class="{cls}">{html.escape(self.message)}</div>'
+        text = self.message
+        if not text and self.state == "idle":
+            text = "Pick one or two settings and their ranges, then Run: the plot appears here."
+        self.note.object = f'<div class="{cls}">{html.escape(text)}</div>'
         self.dash.state_extra.update(extra)
         self.dash._update_state()

@@ -41,6 +41,7 @@ def _answers(port: int, probe: str | None) -> bool:
         if probe is None:
             with socket.create_connection(("127.0.0.1", port), timeout=1):
                 return True
+        # A first page builds a session and computes it: seconds on a loaded machine.
         with urllib.request.urlopen(f"http://127.0.0.1:{port}{probe}", timeout=20) as r:
             return r.status == 200
     except OSError:

@@ -88,7 +88,7 @@ def test_a_bandwidth_beyond_the_model_rule_is_refused_and_changes_nothing(dash):
     before, runs = snapshot.physics_hash(dash.setup), dash.computations
     sc.quantities["bandwidth"].widget.value = 400.0  # nm: a FWHM above 0.6 λ reaches λ = 0
     level, text = dash.messages[-1]
-    assert level == "error" and "source.bandwidth" in text
+    assert level == "error" and text.startswith("“Bandwidth”: a Gaussian spectrum"), text
     assert snapshot.physics_hash(dash.setup) == before and dash.computations == runs
     assert sc.quantities["bandwidth"].widget.value == pytest.approx(10.0)  # shown again
 
@@ -151,9 +151,9 @@ def test_camera_settings_convert_display_units_to_si(dash):
 @pytest.mark.parametrize(
     ("name", "value", "words"),
     [
-        ("exposure", 0.0, "camera.exposure: 0 ms is too small"),
-        ("fill_factor", 1.5, "camera.fill_factor: 1.5 is too large"),
-        ("pixel_pitch", float("nan"), "camera.pixel_pitch: a number is needed"),
+        ("exposure", 0.0, "Exposure must be more than 0 ms; it stays at 0.05 ms"),
+        ("fill_factor", 1.5, "Fill factor must be at most 1; it stays at 1"),
+        ("pixel_pitch", float("nan"), "Pixel pitch needs a number; it stays at 5 µm"),
     ],
 )
 def test_a_bad_camera_value_is_a_clear_message_and_changes_nothing(dash, name, value, words):

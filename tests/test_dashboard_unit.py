@@ -97,12 +97,13 @@ def test_element_width_edit_in_micrometres(dash):
     assert dash.setup.aperture.elements[1].width == pytest.approx(5e-5)
 
 
-def test_out_of_range_value_is_refused_with_its_path_and_changes_nothing(dash):
+def test_out_of_range_value_is_refused_in_the_controls_words_and_changes_nothing(dash):
     before = snapshot.physics_hash(dash.setup)
     runs = dash.computations
     assert not dash.set_value("screen.distance", -1.0)
     level, text = dash.messages[-1]
-    assert level == "error" and "screen.distance" in text
+    # The control's label and unit, not the snapshot path; and the value it keeps.
+    assert level == "error" and text == "Distance must be more than 0 m; it stays at 2 m"
     assert snapshot.physics_hash(dash.setup) == before
     assert dash.computations == runs
     # The widget shows the committed value again.
