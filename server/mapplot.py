@@ -237,7 +237,10 @@ class MapPlot:
         fig.add_layout(self.vertical)
         fig.add_layout(self.horizontal)
         if on_tap is not None:
-            fig.on_event(events.Tap, lambda e: on_tap(float(e.x), float(e.y)))
+            # Bokeh reports a second click within 300 ms as a double tap, wherever it
+            # lands: both move the cuts, so a quick second click is never lost.
+            for kind in (events.Tap, events.DoubleTap):
+                fig.on_event(kind, lambda e: on_tap(float(e.x), float(e.y)))
         self.figure = fig
 
     # ----------------------------------------------------------------- updates

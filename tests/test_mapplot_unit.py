@@ -116,3 +116,14 @@ def test_hover_decimals_follow_the_pixel():
     assert mapplot.axis_decimals(0.0417) == 3  # a 20 mm window of 480 pixels
     assert mapplot.axis_decimals(0.001) == 4
     assert mapplot.axis_decimals(2.0) == 1
+
+
+def test_a_click_and_a_quick_second_click_both_reach_the_map_callback():
+    from bokeh import events
+
+    taps: list[tuple[float, float]] = []
+    m = mapplot.MapPlot(on_tap=lambda x, y: taps.append((x, y)))
+    # Bokeh's own dispatch, as when the browser sends the events.
+    m.figure._trigger_event(events.Tap(m.figure, x=-1.5, y=0.25))
+    m.figure._trigger_event(events.DoubleTap(m.figure, x=2.0, y=-0.5))
+    assert taps == [(-1.5, 0.25), (2.0, -0.5)]

@@ -85,6 +85,7 @@ def test_a_click_on_the_map_moves_the_cuts(kit):
         prev, box = box, canvas.bounding_box()
     points = {}
     for name, fx in (("left", 0.25), ("right", 0.7)):
+        pg.wait_for_timeout(350)  # apart from the last click by more than a double tap
         pg.mouse.click(box["x"] + fx * box["width"], box["y"] + 0.35 * box["height"])
         points[name] = kit.wait_state(
             lambda s, prev=dict(points): (
